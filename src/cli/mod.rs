@@ -1,0 +1,93 @@
+//! The command line: parse, resolve to a checked configuration, dispatch,
+//! and map the outcome to an exit code (0 done, 1 a finding, 2 an error).
+
+mod output;
+mod show;
+mod split;
+mod verify;
+
+use std::process::ExitCode;
+
+use clap::{Parser, Subcommand};
+
+/// Reproducible train / validation / test splits with a sealed test partition.
+#[derive(Debug, Parser)]
+#[command(name = "cleave", version, about, propagate_version = true)]
+pub struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+enum Command {
+    /// Split a table into partitions, digest every row and seal the test partition.
+    Split(split::Args),
+    /// Check that a sealed folder still matches its manifest (exit 1 if not).
+    Verify(verify::Args),
+    /// Show a readable summary of a manifest: sizes, shares and strata.
+    Show(show::Args),
+}
+
+/// What a command ended with.
+pub enum Outcome {
+    /// Done, nothing found.
+    Ok,
+    /// Done, and something differs or leaked.
+    Finding,
+}
+
+/// Runs the command line and returns the process exit code.
+pub fn main() -> ExitCode {
+    install_panic_hook();
+    let cli = match Cli::try_parse() {
+        Ok(cli) => cli,
+        Err(e) => {
+            let code = if e.use_stderr() { 2 } else { 0 };
+            let _ = e.print();
+            return ExitCode::from(code);
+        }
+    };
+    let result = match cli.command {
+        Command::Split(args) => split::run(args),
+        Command::Verify(args) => verify::run(args),
+        Command::Show(args) => show::run(args),
+    };
+    match result {
+        Ok(Outcome::Ok) => ExitCode::SUCCESS,
+        Ok(Outcome::Finding) => ExitCode::from(1),
+        Err(e) if output::is_broken_pipe(&e) => ExitCode::SUCCESS,
+        Err(e) => {
+            output::error(&e);
+            ExitCode::from(2)
+        }
+    }
+}
+
+/// Panics inside guarded decoders become errors; keep the default hook's
+/// report for every other panic (those are bugs).
+fn install_panic_hook() {
+    let default = std::panic::take_hook();
+    std::panic::set_hook(Box::new(move |info| {
+        if !crate::io::decoding() {
+            default(info);
+        }
+    }));
+}
+
+/// The manifest's creation time: `SOURCE_DATE_EPOCH` when set (so that two
+/// runs can be byte-identical), else now; RFC 3339 in UTC, whole seconds.
+fn creation_time() -> anyhow::Result<String> {
+    let secs = match std::env::var("SOURCE_DATE_EPOCH") {
+        Ok(v) => {
+            let t = v.trim();
+            if t.is_empty() || !t.bytes().all(|b| b.is_ascii_digit()) {
+                anyhow::bail!("SOURCE_DATE_EPOCH `{v}` is not a whole number of seconds since 1970-01-01");
+            }
+            t.parse::<i64>().map_err(|_| anyhow::anyhow!("SOURCE_DATE_EPOCH `{v}` is out of range"))?
+        }
+        Err(_) => chrono::Utc::now().timestamp(),
+    };
+    let t = chrono::DateTime::from_timestamp(secs, 0)
+        .ok_or_else(|| anyhow::anyhow!("SOURCE_DATE_EPOCH `{secs}` is out of range"))?;
+    Ok(t.to_rfc3339_opts(chrono::SecondsFormat::Secs, true))
+}

@@ -1,0 +1,127 @@
+//! `cleave show`.
+
+use std::path::PathBuf;
+
+use serde_json::json;
+
+use crate::cli::output::{self, percent, sanitize};
+use crate::cli::Outcome;
+use crate::manifest;
+
+/// Show a readable summary of a manifest: sizes, shares and strata.
+#[derive(Debug, clap::Args)]
+pub struct Args {
+    /// The output folder of a split, or its manifest.yaml.
+    manifest: PathBuf,
+    /// Print one JSON document instead of text.
+    #[arg(long)]
+    json: bool,
+}
+
+pub fn run(args: Args) -> anyhow::Result<Outcome> {
+    let loaded = manifest::load(&args.manifest)?;
+    if !loaded.intact() {
+        output::warn(&format!(
+            "`{}` was modified after sealing (checksum mismatch): what follows cannot be trusted; run `cleave verify`",
+            loaded.path.display()
+        ));
+    }
+    let m = &loaded.manifest;
+    if args.json {
+        let mut doc = serde_json::to_value(m)?;
+        doc["schema_version"] = json!(1);
+        doc["checksum_ok"] = json!(loaded.intact());
+        output::json(&doc)?;
+        return Ok(Outcome::Ok);
+    }
+    let total = m.source.rows;
+    let mut t = String::new();
+    t.push_str(&format!(
+        "manifest `{}`  checksum {} ({})\n",
+        sanitize(&loaded.path.display().to_string()),
+        loaded.recorded,
+        if loaded.intact() { "matches" } else { "DOES NOT MATCH" }
+    ));
+    t.push_str(&format!("created {} by {} {}\n", m.created, m.tool.name, m.tool.version));
+    t.push_str(&format!(
+        "source `{}`: {}, {} rows, {} columns, {} bytes, BLAKE3 {}\n",
+        sanitize(&m.source.file),
+        m.source.format,
+        total,
+        m.source.columns.len(),
+        m.source.bytes,
+        m.source.blake3
+    ));
+    let o = &m.options;
+    let all_columns = o.key.len() + o.label.iter().filter(|l| !o.key.contains(l)).count() == m.source.columns.len();
+    t.push_str(&format!(
+        "options: ratios {}, seed {}, stratify {}, key {}, label {}\n",
+        o.ratios.join(","),
+        o.seed,
+        if o.stratify.is_empty() { "none".to_string() } else { format!("{} (bins {})", o.stratify.join(","), o.bins) },
+        if all_columns { "every column".to_string() } else { o.key.join(",") },
+        if o.label.is_empty() { "none".to_string() } else { o.label.join(",") },
+    ));
+    t.push_str("\npartition        rows    share  asked  bytes         file\n");
+    for (p, asked) in m.partitions.iter().zip(&o.ratios) {
+        t.push_str(&format!(
+            "{:<12} {:>10} {:>8}  {:>5}  {:<12}  {}\n",
+            p.name.name(),
+            p.rows,
+            percent(p.rows, total),
+            asked,
+            p.bytes,
+            sanitize(&p.file)
+        ));
+    }
+    if let Some(strata) = &m.strata {
+        t.push_str(&format!("\nstrata: {} by {}\n", strata.count, o.stratify.join(", ")));
+        for c in &strata.columns {
+            if c.binned {
+                t.push_str(&format!("  `{}` cut into {} quantile bins\n", c.name, c.levels));
+            }
+        }
+        let labels: Vec<&String> = m.partitions[0].strata.keys().collect();
+        let width = labels.iter().map(|l| l.chars().count()).max().unwrap_or(7).max(7);
+        t.push_str(&format!("{:<width$} {:>8}", "stratum", "rows"));
+        for p in &m.partitions {
+            t.push_str(&format!("  {:>18}", p.name.name()));
+        }
+        t.push('\n');
+        for label in labels {
+            let n: u64 = m.partitions.iter().map(|p| p.strata.get(label).copied().unwrap_or(0)).sum();
+            t.push_str(&format!("{:<width$} {:>8}", sanitize(label), n));
+            for p in &m.partitions {
+                let c = p.strata.get(label).copied().unwrap_or(0);
+                t.push_str(&format!("  {:>18}", format!("{c} ({})", percent(c, n))));
+            }
+            t.push('\n');
+        }
+        for s in &strata.short {
+            let missing: Vec<&str> = s.missing_from.iter().map(|p| p.name()).collect();
+            t.push_str(&format!(
+                "  too small: `{}` ({} rows) has none in {}\n",
+                sanitize(&s.stratum),
+                s.rows,
+                missing.join(", ")
+            ));
+        }
+    }
+    t.push_str(&format!(
+        "\nseal over `{}`: digests {} ({}), {}\n",
+        m.seal.partition,
+        m.digest.algorithm,
+        m.digest.encoding,
+        if m.seal.keyed { "keyed" } else { "unkeyed" }
+    ));
+    for f in &m.seal.files {
+        t.push_str(&format!(
+            "  {:<18} {:>10} records  {}\n",
+            f.file,
+            f.records,
+            if f.shareable { "shareable with the modelling team" } else { "evaluator only (covers the labels)" }
+        ));
+    }
+    output::print(&t)?;
+    Ok(Outcome::Ok)
+}

@@ -1,0 +1,121 @@
+//! `cleave split`.
+
+use std::path::PathBuf;
+
+use anyhow::Context;
+use serde_json::json;
+
+use crate::cli::{creation_time, output, Outcome};
+use crate::io::Format;
+use crate::split::{self, Ratios, SplitConfig};
+
+fn parse_format(s: &str) -> Result<Format, String> {
+    Format::parse(s).ok_or_else(|| format!("unknown format `{s}` (csv, parquet, arrow, jsonl)"))
+}
+
+/// Split a table into partitions, digest every row and seal the test partition.
+#[derive(Debug, clap::Args)]
+pub struct Args {
+    /// The table to split (.csv, .parquet, .arrow, .jsonl).
+    input: PathBuf,
+    /// Output folder; built beside it and renamed into place when complete.
+    #[arg(long, value_name = "DIR")]
+    out: PathBuf,
+    /// Train, validation and test shares in percent or fractions; two values mean train,test.
+    #[arg(long, default_value = "70,15,15", value_name = "SHARES")]
+    ratios: String,
+    /// Seed for the assignment; recorded in the manifest.
+    #[arg(long, default_value_t = 0)]
+    seed: u64,
+    /// Keep each stratum's share in every partition (comma-separated columns).
+    #[arg(long, value_delimiter = ',', value_name = "COL")]
+    stratify: Vec<String>,
+    /// Quantile bins for numeric stratify columns with more distinct values than this.
+    #[arg(long, default_value_t = 5, value_name = "K")]
+    bins: usize,
+    /// Columns that identify a row's content for digests (default: every column).
+    #[arg(long, value_delimiter = ',', value_name = "COL")]
+    key: Option<Vec<String>>,
+    /// Target column(s): digested last, so features can be digested without them.
+    #[arg(long, value_delimiter = ',', value_name = "COL")]
+    label: Vec<String>,
+    /// Input format when the extension does not say.
+    #[arg(long, value_parser = parse_format)]
+    format: Option<Format>,
+    /// Format of the partition files (default: the input's).
+    #[arg(long, value_parser = parse_format)]
+    output_format: Option<Format>,
+    /// Replace the output folder if it exists.
+    #[arg(long)]
+    force: bool,
+    /// Print one JSON document instead of text.
+    #[arg(long)]
+    json: bool,
+}
+
+pub fn run(args: Args) -> anyhow::Result<Outcome> {
+    let ratios = Ratios::parse(&args.ratios)?;
+    let cfg = SplitConfig {
+        input: args.input.clone(),
+        format: args.format,
+        output_format: args.output_format,
+        out: args.out.clone(),
+        force: args.force,
+        ratios,
+        seed: args.seed,
+        stratify: args.stratify,
+        bins: args.bins,
+        key: args.key,
+        label: args.label,
+        created: creation_time()?,
+    };
+    let outcome = split::run(&cfg).with_context(|| format!("cannot split `{}`", args.input.display()))?;
+    for w in &outcome.warnings {
+        output::warn(w);
+    }
+    let m = &outcome.manifest;
+    if args.json {
+        let mut partitions = serde_json::Map::new();
+        for p in &m.partitions {
+            partitions.insert(p.name.name().into(), json!({"rows": p.rows, "file": p.file, "bytes": p.bytes}));
+        }
+        output::json(&json!({
+            "schema_version": 1,
+            "out": args.out.display().to_string(),
+            "manifest": crate::manifest::FILE_NAME,
+            "manifest_checksum": outcome.manifest_checksum,
+            "rows": m.source.rows,
+            "partitions": partitions,
+            "dropped_by_gap": 0,
+            "warnings": outcome.warnings,
+        }))?;
+        return Ok(Outcome::Ok);
+    }
+    let mut text = format!(
+        "split `{}` ({} rows) into `{}`\n",
+        output::sanitize(&m.source.file),
+        m.source.rows,
+        output::sanitize(&args.out.display().to_string())
+    );
+    for (p, asked) in m.partitions.iter().zip(&m.options.ratios) {
+        text.push_str(&format!(
+            "  {:<10} {:>10} rows  {:>6}  (asked {asked})  {}\n",
+            p.name.name(),
+            p.rows,
+            output::percent(p.rows, m.source.rows),
+            p.file
+        ));
+    }
+    if let Some(strata) = &m.strata {
+        text.push_str(&format!("  stratified by {} ({} strata)\n", m.options.stratify.join(", "), strata.count));
+    }
+    text.push_str(&format!("sealed the test partition: {}\n", crate::manifest::FILE_NAME));
+    text.push_str(&format!("seal identity (manifest checksum): {}\n", outcome.manifest_checksum));
+    text.push_str(&format!(
+        "pin it to verify later: cleave verify {} --expect-manifest {}\n",
+        output::sanitize(&args.out.display().to_string()),
+        outcome.manifest_checksum
+    ));
+    output::print(&text)?;
+    Ok(Outcome::Ok)
+}

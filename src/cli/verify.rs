@@ -1,0 +1,53 @@
+//! `cleave verify`.
+
+use std::path::PathBuf;
+
+use serde_json::json;
+
+use crate::cli::{output, Outcome};
+use crate::manifest;
+
+/// Check that a sealed folder still matches its manifest.
+#[derive(Debug, clap::Args)]
+pub struct Args {
+    /// The output folder of a split, or its manifest.yaml.
+    path: PathBuf,
+    /// Refuse any manifest whose checksum is not this one (the value `split` printed).
+    #[arg(long, value_name = "HASH")]
+    expect_manifest: Option<String>,
+    /// Print one JSON document instead of text.
+    #[arg(long)]
+    json: bool,
+}
+
+pub fn run(args: Args) -> anyhow::Result<Outcome> {
+    let pin = args.expect_manifest.as_deref().map(manifest::parse_pin).transpose()?;
+    let report = crate::verify::verify(&args.path, pin.as_deref())?;
+    let shown = output::sanitize(&args.path.display().to_string());
+    if args.json {
+        output::json(&json!({
+            "schema_version": 1,
+            "intact": report.intact(),
+            "manifest_checksum": report.manifest_checksum,
+            "pinned": pin.is_some(),
+            "files_checked": report.files_checked,
+            "rows_checked": report.rows_checked,
+            "problems": report.problems,
+        }))?;
+    } else if report.intact() {
+        output::print(&format!(
+            "intact: `{shown}` ({} files, {} rows re-digested)\nmanifest checksum: {}{}\n",
+            report.files_checked,
+            report.rows_checked,
+            report.manifest_checksum,
+            if pin.is_some() { " (as pinned)" } else { " (not pinned: pass --expect-manifest to rule out a re-sealed folder)" }
+        ))?;
+    } else {
+        let mut text = format!("differs: `{shown}` ({} problems)\n", report.problems.len());
+        for p in &report.problems {
+            text.push_str(&format!("  {}: {}\n", output::sanitize(&p.file), output::sanitize(&p.what)));
+        }
+        output::print(&text)?;
+    }
+    Ok(if report.intact() { Outcome::Ok } else { Outcome::Finding })
+}

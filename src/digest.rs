@@ -1,0 +1,606 @@
+//! Row digests: what "the same row" means.
+//!
+//! A row digest is the first 128 bits of BLAKE3 (keyed mode) over the
+//! canonical encoding of the row's key columns. The encoding is by meaning,
+//! not storage, so a row digests the same from CSV, Parquet, Arrow or JSON
+//! Lines, with its columns in any order and other columns beside it.
+//! Encoding `cleave-row-v1`, in full (DEVELOPERS.md repeats it; the vectors in
+//! `fixtures/digest-vectors.csv` pin it):
+//!
+//! - Columns: the feature columns sorted by name (byte order), then the label
+//!   columns sorted by name. The row's bytes are the concatenation of each
+//!   column's value encoding, in that order.
+//! - Value encoding: one tag byte, then for all but null and boolean a 32-bit
+//!   little-endian byte length and the value's text:
+//!   `00` null; `01` boolean, then `00` or `01`; `02` number, text as in
+//!   [`crate::value`] (`15e-1`); `03` string, its UTF-8; `04` binary, its
+//!   bytes; `05` date, `YYYY-MM-DD`; `06` timestamp with a zone, in UTC as
+//!   `YYYY-MM-DDTHH:MM:SS[.fraction]Z`, the fraction without trailing zeros;
+//!   `07` timestamp without a zone, the same without `Z`.
+//! - Key: `blake3::derive_key(CONTEXT, material)` where material is `u`
+//!   (unkeyed) or `k` followed by the 32-byte digest key, then the feature
+//!   names and the label names, each list as a 32-bit little-endian count
+//!   followed by each name as a 32-bit little-endian length and its UTF-8.
+//!   The row and features digests share the row context; the loose and group
+//!   digests have contexts of their own.
+//! - Features digest: the same key over the feature columns' bytes alone
+//!   (without labels it equals the row digest).
+//! - Loose digest: as the features digest after normalising values: text to
+//!   Unicode NFKC, default case folding, NFKC again, trimmed, inner runs of
+//!   whitespace collapsed to one space; floats rounded to 6 significant
+//!   digits (half away from zero, on the shortest decimal digits).
+//! - Content digest of a set of rows: BLAKE3 in derive-key mode with the
+//!   content context over the sorted 16-byte row digests, all 256 bits.
+
+use std::path::Path;
+
+use arrow_array::cast::AsArray;
+use arrow_array::types::{
+    Date32Type, Decimal128Type, Float32Type, Float64Type, Int64Type, TimestampMicrosecondType,
+    TimestampMillisecondType, TimestampNanosecondType, TimestampSecondType, UInt64Type,
+};
+use arrow_array::{Array, ArrayRef, RecordBatch};
+use arrow_schema::{DataType, Schema, TimeUnit};
+
+use crate::error::{Error, Result};
+use crate::io::{require_supported, ColumnType};
+use crate::value;
+
+/// Name of the row encoding, recorded in the manifest.
+pub const ENCODING: &str = "cleave-row-v1";
+/// Name of the digest algorithm, recorded in the manifest.
+pub const ALGORITHM: &str = "blake3-128";
+
+const ROW_CONTEXT: &str = "cleave 2026-12-02 row digest v1";
+const LOOSE_CONTEXT: &str = "cleave 2026-12-02 loose digest v1";
+const GROUP_CONTEXT: &str = "cleave 2026-12-02 group digest v1";
+const CONTENT_CONTEXT: &str = "cleave 2026-12-02 content digest v1";
+const FINGERPRINT_CONTEXT: &str = "cleave 2026-12-02 digest key fingerprint v1";
+
+/// A 128-bit row digest.
+pub type RowDigest = [u8; 16];
+
+/// A 256-bit secret for keyed digests.
+#[derive(Clone)]
+pub struct DigestKey(pub [u8; 32]);
+
+impl DigestKey {
+    /// The key's public fingerprint (128 bits, hex): names the key without
+    /// revealing it.
+    pub fn fingerprint(&self) -> String {
+        let fp = blake3::derive_key(FINGERPRINT_CONTEXT, &self.0);
+        hex(&fp[..16])
+    }
+}
+
+impl std::fmt::Debug for DigestKey {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "DigestKey({})", self.fingerprint())
+    }
+}
+
+/// Lowercase hex of bytes.
+pub fn hex(bytes: &[u8]) -> String {
+    const DIGITS: &[u8; 16] = b"0123456789abcdef";
+    let mut s = String::with_capacity(bytes.len() * 2);
+    for b in bytes {
+        s.push(DIGITS[(b >> 4) as usize] as char);
+        s.push(DIGITS[(b & 15) as usize] as char);
+    }
+    s
+}
+
+/// The content digest of a set of rows: order-independent, and sensitive to
+/// duplicates (a sorted list, never a XOR or sum). Sorts `digests`.
+pub fn content_digest(digests: &mut [RowDigest]) -> String {
+    digests.sort_unstable();
+    let mut h = blake3::Hasher::new_derive_key(CONTENT_CONTEXT);
+    for d in digests.iter() {
+        h.update(d);
+    }
+    h.finalize().to_hex().to_string()
+}
+
+fn material(key: Option<&DigestKey>, lists: &[&[String]]) -> Vec<u8> {
+    let mut m = Vec::new();
+    match key {
+        Some(k) => {
+            m.push(b'k');
+            m.extend_from_slice(&k.0);
+        }
+        None => m.push(b'u'),
+    }
+    for list in lists {
+        m.extend_from_slice(&(list.len() as u32).to_le_bytes());
+        for name in list.iter() {
+            m.extend_from_slice(&(name.len() as u32).to_le_bytes());
+            m.extend_from_slice(name.as_bytes());
+        }
+    }
+    m
+}
+
+/// Which columns make a row's identity, and under which key.
+#[derive(Debug, Clone)]
+pub struct DigestSpec {
+    features: Vec<String>,
+    labels: Vec<String>,
+    row_key: [u8; 32],
+    loose_key: [u8; 32],
+}
+
+impl DigestSpec {
+    /// The spec for `key_columns` (labels among them are moved last).
+    pub fn new(key_columns: &[String], labels: &[String], key: Option<&DigestKey>) -> Self {
+        let mut labels: Vec<String> = labels.to_vec();
+        labels.sort();
+        labels.dedup();
+        let mut features: Vec<String> = key_columns.iter().filter(|c| !labels.contains(c)).cloned().collect();
+        features.sort();
+        features.dedup();
+        let row_key = blake3::derive_key(ROW_CONTEXT, &material(key, &[&features, &labels]));
+        let loose_key = blake3::derive_key(LOOSE_CONTEXT, &material(key, &[&features, &[]]));
+        DigestSpec { features, labels, row_key, loose_key }
+    }
+
+    /// Feature columns, in encoding order.
+    pub fn features(&self) -> &[String] {
+        &self.features
+    }
+
+    /// Label columns, in encoding order.
+    pub fn labels(&self) -> &[String] {
+        &self.labels
+    }
+
+    /// Every column the digests read.
+    pub fn columns(&self) -> Vec<String> {
+        self.features.iter().chain(&self.labels).cloned().collect()
+    }
+
+    /// Resolves the spec against a file's schema.
+    ///
+    /// # Errors
+    /// Missing columns (listing those there are) and types cleave cannot digest.
+    pub fn bind(&self, path: &Path, schema: &Schema) -> Result<BoundSpec> {
+        let mut columns = Vec::new();
+        for name in self.features.iter().chain(&self.labels) {
+            let index = schema.index_of(name).map_err(|_| Error::UnknownColumn {
+                path: path.to_path_buf(),
+                column: name.clone(),
+                available: schema.fields().iter().map(|f| f.name().as_str()).collect::<Vec<_>>().join(", "),
+            })?;
+            require_supported(path, schema.field(index))?;
+            columns.push(index);
+        }
+        Ok(BoundSpec { spec: self.clone(), columns })
+    }
+}
+
+/// A [`DigestSpec`] resolved to column positions of one schema.
+pub struct BoundSpec {
+    spec: DigestSpec,
+    columns: Vec<usize>,
+}
+
+/// Digests of one row: row, features and loose.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct RowDigests {
+    /// Every key column.
+    pub row: RowDigest,
+    /// Key columns minus labels.
+    pub features: RowDigest,
+    /// Features after normalisation.
+    pub loose: RowDigest,
+}
+
+fn truncate(h: blake3::Hash) -> RowDigest {
+    let mut d = [0u8; 16];
+    d.copy_from_slice(&h.as_bytes()[..16]);
+    d
+}
+
+impl BoundSpec {
+    fn encoders<'a>(&self, batch: &'a RecordBatch) -> Result<Vec<Encoder>> {
+        self.columns.iter().map(|&i| Encoder::new(batch.column(i), batch.schema().field(i).name())).collect()
+    }
+
+    /// The row digest of every row of a batch, appended to `out`.
+    ///
+    /// # Errors
+    /// Types that cannot be encoded.
+    pub fn row_digests(&self, batch: &RecordBatch, out: &mut Vec<RowDigest>) -> Result<()> {
+        let encoders = self.encoders(batch)?;
+        let mut buf = Vec::with_capacity(256);
+        out.reserve(batch.num_rows());
+        for row in 0..batch.num_rows() {
+            buf.clear();
+            for e in &encoders {
+                e.write(row, &mut buf, false);
+            }
+            out.push(truncate(blake3::keyed_hash(&self.spec.row_key, &buf)));
+        }
+        Ok(())
+    }
+
+    /// All three digests of the given rows of a batch.
+    ///
+    /// # Errors
+    /// Types that cannot be encoded.
+    pub fn all_digests(&self, batch: &RecordBatch, rows: &[usize], out: &mut Vec<RowDigests>) -> Result<()> {
+        let encoders = self.encoders(batch)?;
+        let n_features = self.spec.features.len();
+        let mut buf = Vec::with_capacity(256);
+        let mut loose = Vec::with_capacity(256);
+        for &row in rows {
+            buf.clear();
+            loose.clear();
+            let mut features_end = 0;
+            for (i, e) in encoders.iter().enumerate() {
+                e.write(row, &mut buf, false);
+                if i < n_features {
+                    e.write(row, &mut loose, true);
+                    features_end = buf.len();
+                }
+            }
+            out.push(RowDigests {
+                row: truncate(blake3::keyed_hash(&self.spec.row_key, &buf)),
+                features: truncate(blake3::keyed_hash(&self.spec.row_key, &buf[..features_end])),
+                loose: truncate(blake3::keyed_hash(&self.spec.loose_key, &loose)),
+            });
+        }
+        Ok(())
+    }
+}
+
+/// The group key digest of every row: equal group values, equal digests.
+pub struct GroupSpec {
+    columns: Vec<String>,
+    key: [u8; 32],
+}
+
+impl GroupSpec {
+    /// The spec for group columns (order as given is kept: it is the key's order).
+    pub fn new(columns: &[String], key: Option<&DigestKey>) -> Self {
+        let key = blake3::derive_key(GROUP_CONTEXT, &material(key, &[columns]));
+        GroupSpec { columns: columns.to_vec(), key }
+    }
+
+    /// The group digest of each row of a batch, appended to `out`.
+    ///
+    /// # Errors
+    /// Missing columns and types that cannot be encoded.
+    pub fn digests(&self, path: &Path, batch: &RecordBatch, out: &mut Vec<RowDigest>) -> Result<()> {
+        let schema = batch.schema();
+        let mut encoders = Vec::new();
+        for name in &self.columns {
+            let i = schema.index_of(name).map_err(|_| Error::UnknownColumn {
+                path: path.to_path_buf(),
+                column: name.clone(),
+                available: schema.fields().iter().map(|f| f.name().as_str()).collect::<Vec<_>>().join(", "),
+            })?;
+            encoders.push(Encoder::new(batch.column(i), name)?);
+        }
+        let mut buf = Vec::with_capacity(64);
+        for row in 0..batch.num_rows() {
+            buf.clear();
+            for e in &encoders {
+                e.write(row, &mut buf, false);
+            }
+            out.push(truncate(blake3::keyed_hash(&self.key, &buf)));
+        }
+        Ok(())
+    }
+}
+
+/// The canonical encoding of one value, as bytes (for stratum keys and tests).
+///
+/// # Errors
+/// Types that cannot be encoded.
+pub fn encode_value(array: &ArrayRef, row: usize, name: &str) -> Result<Vec<u8>> {
+    let mut out = Vec::new();
+    Encoder::new(array, name)?.write(row, &mut out, false);
+    Ok(out)
+}
+
+const TAG_NULL: u8 = 0;
+const TAG_BOOL: u8 = 1;
+const TAG_NUMBER: u8 = 2;
+const TAG_STRING: u8 = 3;
+const TAG_BINARY: u8 = 4;
+const TAG_DATE: u8 = 5;
+const TAG_TIMESTAMP: u8 = 6;
+const TAG_LOCAL_TIMESTAMP: u8 = 7;
+
+/// One column of one batch, ready to encode value by value.
+enum Encoder {
+    Null,
+    Bool(ArrayRef),
+    Int64(ArrayRef),
+    UInt64(ArrayRef),
+    Float64(ArrayRef),
+    Float32(ArrayRef),
+    Decimal(ArrayRef, i64),
+    Utf8(ArrayRef),
+    Binary(ArrayRef),
+    Date(ArrayRef),
+    Timestamp { array: ArrayRef, unit: TimeUnit, zoned: bool },
+}
+
+fn cast(array: &ArrayRef, to: &DataType, name: &str) -> Result<ArrayRef> {
+    arrow_cast::cast(array, to).map_err(|e| Error::UnsupportedType {
+        path: Default::default(),
+        column: name.to_string(),
+        data_type: format!("{} ({e})", array.data_type()),
+    })
+}
+
+impl Encoder {
+    fn new(array: &ArrayRef, name: &str) -> Result<Self> {
+        let dt = array.data_type().clone();
+        if let DataType::Dictionary(_, value) = &dt {
+            let plain = cast(array, value, name)?;
+            return Encoder::new(&plain, name);
+        }
+        Ok(match dt {
+            DataType::Null => Encoder::Null,
+            DataType::Boolean => Encoder::Bool(array.clone()),
+            DataType::Int64 => Encoder::Int64(array.clone()),
+            DataType::Int8 | DataType::Int16 | DataType::Int32 | DataType::UInt8 | DataType::UInt16 | DataType::UInt32 => {
+                Encoder::Int64(cast(array, &DataType::Int64, name)?)
+            }
+            DataType::UInt64 => Encoder::UInt64(array.clone()),
+            DataType::Float64 => Encoder::Float64(array.clone()),
+            DataType::Float32 => Encoder::Float32(array.clone()),
+            DataType::Decimal128(_, scale) => Encoder::Decimal(array.clone(), scale as i64),
+            DataType::Utf8 => Encoder::Utf8(array.clone()),
+            DataType::LargeUtf8 | DataType::Utf8View => Encoder::Utf8(cast(array, &DataType::Utf8, name)?),
+            DataType::Binary => Encoder::Binary(array.clone()),
+            DataType::LargeBinary | DataType::BinaryView | DataType::FixedSizeBinary(_) => {
+                Encoder::Binary(cast(array, &DataType::Binary, name)?)
+            }
+            DataType::Date32 => Encoder::Date(array.clone()),
+            DataType::Date64 => Encoder::Date(cast(array, &DataType::Date32, name)?),
+            DataType::Timestamp(unit, tz) => Encoder::Timestamp { array: array.clone(), unit, zoned: tz.is_some() },
+            other => {
+                return Err(Error::UnsupportedType {
+                    path: Default::default(),
+                    column: name.to_string(),
+                    data_type: other.to_string(),
+                })
+            }
+        })
+    }
+
+    fn array(&self) -> Option<&ArrayRef> {
+        match self {
+            Encoder::Null => None,
+            Encoder::Bool(a)
+            | Encoder::Int64(a)
+            | Encoder::UInt64(a)
+            | Encoder::Float64(a)
+            | Encoder::Float32(a)
+            | Encoder::Decimal(a, _)
+            | Encoder::Utf8(a)
+            | Encoder::Binary(a)
+            | Encoder::Date(a) => Some(a),
+            Encoder::Timestamp { array, .. } => Some(array),
+        }
+    }
+
+    /// Appends value `row`'s encoding; `loose` normalises text and floats.
+    fn write(&self, row: usize, out: &mut Vec<u8>, loose: bool) {
+        match self.array() {
+            None => {
+                out.push(TAG_NULL);
+                return;
+            }
+            Some(a) if a.is_null(row) => {
+                out.push(TAG_NULL);
+                return;
+            }
+            _ => {}
+        }
+        match self {
+            Encoder::Null => unreachable!("handled above"),
+            Encoder::Bool(a) => {
+                out.push(TAG_BOOL);
+                out.push(a.as_boolean().value(row) as u8);
+            }
+            Encoder::Int64(a) => {
+                let v = a.as_primitive::<Int64Type>().value(row);
+                with_len(out, TAG_NUMBER, |o| value::write_i64(v, o));
+            }
+            Encoder::UInt64(a) => {
+                let v = a.as_primitive::<UInt64Type>().value(row);
+                with_len(out, TAG_NUMBER, |o| value::write_u64(v, o));
+            }
+            Encoder::Float64(a) => {
+                let v = a.as_primitive::<Float64Type>().value(row);
+                with_len(out, TAG_NUMBER, |o| match (loose, value::canonical_f64(v)) {
+                    (true, Some(c)) => c.round_significant(6).write(o),
+                    _ => value::write_f64(v, o),
+                });
+            }
+            Encoder::Float32(a) => {
+                let v = a.as_primitive::<Float32Type>().value(row);
+                with_len(out, TAG_NUMBER, |o| match (loose, value::canonical_f32(v)) {
+                    (true, Some(c)) => c.round_significant(6).write(o),
+                    _ => value::write_f32(v, o),
+                });
+            }
+            Encoder::Decimal(a, scale) => {
+                let v = a.as_primitive::<Decimal128Type>().value(row);
+                with_len(out, TAG_NUMBER, |o| value::Canonical::from_scaled(v, *scale).write(o));
+            }
+            Encoder::Utf8(a) => {
+                let s = a.as_string::<i32>().value(row);
+                if loose {
+                    let n = normalise_text(s);
+                    with_len(out, TAG_STRING, |o| o.extend_from_slice(n.as_bytes()));
+                } else {
+                    with_len(out, TAG_STRING, |o| o.extend_from_slice(s.as_bytes()));
+                }
+            }
+            Encoder::Binary(a) => {
+                let b = a.as_binary::<i32>().value(row);
+                with_len(out, TAG_BINARY, |o| o.extend_from_slice(b));
+            }
+            Encoder::Date(a) => {
+                let days = a.as_primitive::<Date32Type>().value(row);
+                with_len(out, TAG_DATE, |o| write_date(days as i64, o));
+            }
+            Encoder::Timestamp { array, unit, zoned } => {
+                let (per_second, v) = match unit {
+                    TimeUnit::Second => (1i64, array.as_primitive::<TimestampSecondType>().value(row)),
+                    TimeUnit::Millisecond => (1_000, array.as_primitive::<TimestampMillisecondType>().value(row)),
+                    TimeUnit::Microsecond => (1_000_000, array.as_primitive::<TimestampMicrosecondType>().value(row)),
+                    TimeUnit::Nanosecond => (1_000_000_000, array.as_primitive::<TimestampNanosecondType>().value(row)),
+                };
+                let secs = v.div_euclid(per_second);
+                let nanos = v.rem_euclid(per_second) * (1_000_000_000 / per_second);
+                let tag = if *zoned { TAG_TIMESTAMP } else { TAG_LOCAL_TIMESTAMP };
+                with_len(out, tag, |o| write_timestamp(secs, nanos as u32, *zoned, o));
+            }
+        }
+    }
+}
+
+fn with_len(out: &mut Vec<u8>, tag: u8, body: impl FnOnce(&mut Vec<u8>)) {
+    out.push(tag);
+    let at = out.len();
+    out.extend_from_slice(&[0; 4]);
+    body(out);
+    let len = (out.len() - at - 4) as u32;
+    out[at..at + 4].copy_from_slice(&len.to_le_bytes());
+}
+
+/// NFKC, default case folding, NFKC, trimmed, whitespace runs collapsed.
+pub fn normalise_text(s: &str) -> String {
+    use unicode_normalization::UnicodeNormalization;
+    let folded: String = caseless::default_case_fold_str(&s.nfkc().collect::<String>());
+    let again: String = folded.nfkc().collect();
+    let mut out = String::with_capacity(again.len());
+    for word in again.split_whitespace() {
+        if !out.is_empty() {
+            out.push(' ');
+        }
+        out.push_str(word);
+    }
+    out
+}
+
+/// Civil date from days since 1970-01-01 (proleptic Gregorian; the
+/// days-from-civil inverse of H. Hinnant's "chrono-compatible low-level date
+/// algorithms").
+fn civil_from_days(z: i64) -> (i64, u32, u32) {
+    let z = z + 719_468;
+    let era = z.div_euclid(146_097);
+    let doe = z.rem_euclid(146_097);
+    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
+    let y = yoe + era * 400;
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let d = (doy - (153 * mp + 2) / 5 + 1) as u32;
+    let m = if mp < 10 { mp + 3 } else { mp - 9 } as u32;
+    (if m <= 2 { y + 1 } else { y }, m, d)
+}
+
+fn push_padded(out: &mut Vec<u8>, v: u32, width: usize) {
+    let s = v.to_string();
+    for _ in s.len()..width {
+        out.push(b'0');
+    }
+    out.extend_from_slice(s.as_bytes());
+}
+
+fn write_year(y: i64, out: &mut Vec<u8>) {
+    if y < 0 {
+        out.push(b'-');
+    }
+    push_padded(out, y.unsigned_abs() as u32, 4);
+}
+
+/// `YYYY-MM-DD` of days since the epoch.
+pub fn write_date(days: i64, out: &mut Vec<u8>) {
+    let (y, m, d) = civil_from_days(days);
+    write_year(y, out);
+    out.push(b'-');
+    push_padded(out, m, 2);
+    out.push(b'-');
+    push_padded(out, d, 2);
+}
+
+/// `YYYY-MM-DDTHH:MM:SS[.fraction][Z]` of seconds and nanoseconds since the epoch.
+pub fn write_timestamp(secs: i64, nanos: u32, zoned: bool, out: &mut Vec<u8>) {
+    let days = secs.div_euclid(86_400);
+    let rem = secs.rem_euclid(86_400) as u32;
+    write_date(days, out);
+    out.push(b'T');
+    push_padded(out, rem / 3600, 2);
+    out.push(b':');
+    push_padded(out, rem / 60 % 60, 2);
+    out.push(b':');
+    push_padded(out, rem % 60, 2);
+    if nanos > 0 {
+        let mut frac = format!("{nanos:09}");
+        while frac.ends_with('0') {
+            frac.pop();
+        }
+        out.push(b'.');
+        out.extend_from_slice(frac.as_bytes());
+    }
+    if zoned {
+        out.push(b'Z');
+    }
+}
+
+/// The type a column of `schema` has by meaning, if cleave can digest it.
+pub fn column_type(schema: &Schema, name: &str) -> Option<ColumnType> {
+    schema.field_with_name(name).ok().and_then(|f| ColumnType::of(f.data_type()))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn ts(secs: i64, nanos: u32, zoned: bool) -> String {
+        let mut out = Vec::new();
+        write_timestamp(secs, nanos, zoned, &mut out);
+        String::from_utf8(out).unwrap()
+    }
+
+    // RFC 3339 section 5.8: 1985-04-12T23:20:50.52Z is 482196050.52 s after
+    // the epoch (checked with Python's datetime.fromisoformat).
+    #[test]
+    fn timestamps_print_as_rfc3339() {
+        assert_eq!(ts(482_196_050, 520_000_000, true), "1985-04-12T23:20:50.52Z");
+        assert_eq!(ts(0, 0, false), "1970-01-01T00:00:00");
+        assert_eq!(ts(-1, 0, true), "1969-12-31T23:59:59Z");
+        let mut d = Vec::new();
+        write_date(19_782, &mut d);
+        assert_eq!(d, b"2024-02-29");
+    }
+
+    // Unicode Standard Annex #15, figure 6 and section 1.2: the ligature
+    // U+FB01 decomposes to "fi" under NFKC; full-width Latin letters map to
+    // ASCII; case folding maps U+00DF to "ss" (Unicode CaseFolding.txt).
+    #[test]
+    fn normalisation_follows_unicode() {
+        assert_eq!(normalise_text("\u{FB01}le"), "file");
+        assert_eq!(normalise_text("\u{FF21}\u{FF22}\u{FF23}"), "abc");
+        assert_eq!(normalise_text("Stra\u{DF}e"), "strasse");
+        assert_eq!(normalise_text("  Low   Flow\tnear weir "), "low flow near weir");
+        assert_eq!(normalise_text("e\u{301}"), "\u{E9}");
+    }
+
+    #[test]
+    fn content_digest_is_order_free_and_counts_duplicates() {
+        let a = [1u8; 16];
+        let b = [2u8; 16];
+        let one = content_digest(&mut [a, b]);
+        assert_eq!(one, content_digest(&mut [b, a]));
+        assert_ne!(one, content_digest(&mut [a, b, a, a]));
+        assert_ne!(content_digest(&mut [a]), content_digest(&mut [a, a, a]));
+    }
+}

@@ -1,0 +1,135 @@
+//! The library's one error type.
+//!
+//! Every variant carries what a user needs to act on it (file, column, line or
+//! row, expected and found) so that the command line can print one clear line.
+//! Causes from other crates are kept as `#[source]`.
+
+use std::path::PathBuf;
+
+use crate::io::Format;
+
+/// Result alias used across the library.
+pub type Result<T, E = Error> = std::result::Result<T, E>;
+
+/// Everything that can go wrong in the library.
+#[derive(Debug, thiserror::Error)]
+pub enum Error {
+    /// An operating-system failure on a named path.
+    #[error("`{}`: {action}: {source}", path.display())]
+    Io {
+        /// The file or folder.
+        path: PathBuf,
+        /// What was being done, e.g. "cannot open".
+        action: &'static str,
+        /// The cause.
+        #[source]
+        source: std::io::Error,
+    },
+
+    /// A data file that is malformed at a known place.
+    #[error("`{}`: {place}{what}", path.display(), place = place_prefix(*line, *row, column.as_deref()))]
+    Malformed {
+        /// The file.
+        path: PathBuf,
+        /// 1-based file line (CSV, JSON Lines; the CSV header is line 1).
+        line: Option<u64>,
+        /// 1-based data row (Parquet, Arrow).
+        row: Option<u64>,
+        /// Column name, where one applies.
+        column: Option<String>,
+        /// What is wrong.
+        what: String,
+    },
+
+    /// A decoder from another crate failed on a file.
+    #[error("`{}`: cannot read as {format}: {message}", path.display())]
+    Decode {
+        /// The file.
+        path: PathBuf,
+        /// The format it was read as.
+        format: Format,
+        /// The decoder's own message.
+        message: String,
+    },
+
+    /// An encoder from another crate failed while writing a file.
+    #[error("`{}`: cannot write as {format}: {message}", path.display())]
+    Encode {
+        /// The file.
+        path: PathBuf,
+        /// The format it was written as.
+        format: Format,
+        /// The encoder's own message.
+        message: String,
+    },
+
+    /// A column named in the options is not in the file.
+    #[error("`{}`: no column `{column}` (columns: {available})", path.display())]
+    UnknownColumn {
+        /// The file.
+        path: PathBuf,
+        /// The missing column.
+        column: String,
+        /// The columns the file has, comma-separated.
+        available: String,
+    },
+
+    /// A column whose type cannot be digested.
+    #[error("`{}`: column `{column}` has type {data_type}, which cleave cannot digest", path.display())]
+    UnsupportedType {
+        /// The file.
+        path: PathBuf,
+        /// The column.
+        column: String,
+        /// Its Arrow type.
+        data_type: String,
+    },
+
+    /// Options that cannot be honoured.
+    #[error("{0}")]
+    Options(String),
+
+    /// A manifest that cannot be read or trusted.
+    #[error("`{}`: {what}", path.display())]
+    Manifest {
+        /// The manifest file.
+        path: PathBuf,
+        /// What is wrong with it.
+        what: String,
+    },
+}
+
+fn place_prefix(line: Option<u64>, row: Option<u64>, column: Option<&str>) -> String {
+    let mut parts = Vec::new();
+    if let Some(line) = line {
+        parts.push(format!("line {line}"));
+    }
+    if let Some(row) = row {
+        parts.push(format!("row {row}"));
+    }
+    if let Some(column) = column {
+        parts.push(format!("column `{column}`"));
+    }
+    if parts.is_empty() {
+        String::new()
+    } else {
+        format!("{}: ", parts.join(", "))
+    }
+}
+
+impl Error {
+    /// Shorthand for an I/O error on a path.
+    pub fn io(path: impl Into<PathBuf>, action: &'static str, source: std::io::Error) -> Self {
+        Error::Io { path: path.into(), action, source }
+    }
+
+    /// Shorthand for a malformed file at a line.
+    pub fn at_line(path: impl Into<PathBuf>, line: u64, what: impl Into<String>) -> Self {
+        Error::Malformed { path: path.into(), line: Some(line), row: None, column: None, what: what.into() }
+    }
+
+    /// Shorthand for a malformed file with no better place to name.
+    pub fn malformed(path: impl Into<PathBuf>, what: impl Into<String>) -> Self {
+        Error::Malformed { path: path.into(), line: None, row: None, column: None, what: what.into() }
+    }
+}

@@ -1,0 +1,588 @@
+//! Reading and writing tables: CSV, Parquet, Arrow IPC files and JSON Lines,
+//! streamed as Arrow record batches.
+//!
+//! This module owns file formats and nothing else: what a row *means* is
+//! [`crate::digest`]'s business, which rows go where is [`crate::split`]'s.
+//! Every decoder from another crate runs inside [`guarded`], because the
+//! Parquet and IPC readers are known to panic on corrupt files
+//! (`shared/guide/reliability.md`, section 1.10): a panic becomes an error
+//! naming the file.
+
+pub mod csv;
+mod write;
+
+use std::collections::BTreeMap;
+use std::fs::File;
+use std::io::{BufReader, Read, Seek};
+use std::panic::{catch_unwind, AssertUnwindSafe};
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+use arrow_array::{Array, RecordBatch, StringArray};
+use arrow_schema::{DataType, Field, Schema, SchemaRef, TimeUnit};
+use parquet::arrow::arrow_reader::{ParquetRecordBatchReader, ParquetRecordBatchReaderBuilder};
+use parquet::arrow::ProjectionMask;
+
+pub use self::csv::RawRows;
+pub use self::write::{write_small, FileSummary, PartitionWriter};
+use crate::error::{Error, Result};
+use crate::value;
+
+/// Rows per record batch.
+pub const BATCH_ROWS: usize = 65_536;
+
+/// A table file format.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Format {
+    /// RFC 4180 comma-separated values with a header line.
+    Csv,
+    /// Apache Parquet.
+    Parquet,
+    /// Arrow IPC file (the form with a footer).
+    Arrow,
+    /// JSON Lines: one JSON object per line.
+    Jsonl,
+}
+
+impl Format {
+    /// All formats, for messages.
+    pub const ALL: [Format; 4] = [Format::Csv, Format::Parquet, Format::Arrow, Format::Jsonl];
+
+    /// The format's name as used on the command line and in the manifest.
+    pub fn name(self) -> &'static str {
+        match self {
+            Format::Csv => "csv",
+            Format::Parquet => "parquet",
+            Format::Arrow => "arrow",
+            Format::Jsonl => "jsonl",
+        }
+    }
+
+    /// The file extension cleave writes.
+    pub fn extension(self) -> &'static str {
+        self.name()
+    }
+
+    /// Parses a format name.
+    pub fn parse(name: &str) -> Option<Format> {
+        match name.to_ascii_lowercase().as_str() {
+            "csv" => Some(Format::Csv),
+            "parquet" | "pq" => Some(Format::Parquet),
+            "arrow" | "ipc" | "feather" => Some(Format::Arrow),
+            "jsonl" | "ndjson" => Some(Format::Jsonl),
+            _ => None,
+        }
+    }
+
+    /// The format a path's extension names.
+    pub fn from_path(path: &Path) -> Option<Format> {
+        Format::parse(path.extension()?.to_str()?)
+    }
+
+    /// The format of `path`: `explicit` when given, else from the extension.
+    ///
+    /// # Errors
+    /// When neither says.
+    pub fn resolve(path: &Path, explicit: Option<Format>) -> Result<Format> {
+        explicit.or_else(|| Format::from_path(path)).ok_or_else(|| {
+            Error::Options(format!(
+                "`{}`: cannot tell the format from the file name; pass --format (csv, parquet, arrow, jsonl)",
+                path.display()
+            ))
+        })
+    }
+}
+
+impl std::fmt::Display for Format {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+/// A column's type by meaning, as the manifest records it.
+///
+/// Storage details (32 or 64 bits, time unit, dictionary encoding) are not
+/// part of it: they do not change what a value means, and row digests ignore
+/// them.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ColumnType {
+    /// Whole numbers.
+    Integer,
+    /// Floating-point numbers.
+    Float,
+    /// Fixed-point decimals.
+    Decimal,
+    /// true / false.
+    Boolean,
+    /// UTF-8 text.
+    String,
+    /// Raw bytes.
+    Binary,
+    /// Calendar dates.
+    Date,
+    /// Instants (timestamps with a time zone), compared in UTC.
+    Timestamp,
+    /// Dates with times of day and no time zone.
+    LocalTimestamp,
+    /// A column with no values at all (every value null).
+    Null,
+}
+
+impl ColumnType {
+    /// The meaning of an Arrow type; `None` for types cleave cannot digest.
+    pub fn of(data_type: &DataType) -> Option<ColumnType> {
+        Some(match data_type {
+            DataType::Int8
+            | DataType::Int16
+            | DataType::Int32
+            | DataType::Int64
+            | DataType::UInt8
+            | DataType::UInt16
+            | DataType::UInt32
+            | DataType::UInt64 => ColumnType::Integer,
+            DataType::Float32 | DataType::Float64 => ColumnType::Float,
+            DataType::Decimal128(_, _) => ColumnType::Decimal,
+            DataType::Boolean => ColumnType::Boolean,
+            DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => ColumnType::String,
+            DataType::Binary | DataType::LargeBinary | DataType::BinaryView | DataType::FixedSizeBinary(_) => {
+                ColumnType::Binary
+            }
+            DataType::Date32 | DataType::Date64 => ColumnType::Date,
+            DataType::Timestamp(_, Some(_)) => ColumnType::Timestamp,
+            DataType::Timestamp(_, None) => ColumnType::LocalTimestamp,
+            DataType::Null => ColumnType::Null,
+            DataType::Dictionary(_, value) => return ColumnType::of(value),
+            _ => return None,
+        })
+    }
+
+    /// The type's name in the manifest.
+    pub fn name(self) -> &'static str {
+        match self {
+            ColumnType::Integer => "integer",
+            ColumnType::Float => "float",
+            ColumnType::Decimal => "decimal",
+            ColumnType::Boolean => "boolean",
+            ColumnType::String => "string",
+            ColumnType::Binary => "binary",
+            ColumnType::Date => "date",
+            ColumnType::Timestamp => "timestamp",
+            ColumnType::LocalTimestamp => "local_timestamp",
+            ColumnType::Null => "null",
+        }
+    }
+
+    /// Whether values of this type are numbers (for quantile bins).
+    pub fn is_numeric(self) -> bool {
+        matches!(self, ColumnType::Integer | ColumnType::Float | ColumnType::Decimal)
+    }
+}
+
+/// Known column types by name, e.g. the sealed schema when re-reading a partition.
+pub type TypeHints = BTreeMap<String, ColumnType>;
+
+/// Runs a decoder, turning a panic into an error naming the file.
+///
+/// # Errors
+/// The decoder's own error, or [`Error::Decode`] if it panicked.
+pub fn guarded<T>(path: &Path, format: Format, f: impl FnOnce() -> Result<T>) -> Result<T> {
+    DECODING.with(|d| d.set(d.get() + 1));
+    let result = catch_unwind(AssertUnwindSafe(f));
+    DECODING.with(|d| d.set(d.get() - 1));
+    match result {
+        Ok(r) => r,
+        Err(payload) => {
+            let message = payload
+                .downcast_ref::<&str>()
+                .map(|s| s.to_string())
+                .or_else(|| payload.downcast_ref::<String>().cloned())
+                .unwrap_or_else(|| "unknown panic".into());
+            Err(Error::Decode {
+                path: path.to_path_buf(),
+                format,
+                message: format!("the file is corrupt (the decoder failed: {message})"),
+            })
+        }
+    }
+}
+
+thread_local! {
+    static DECODING: std::cell::Cell<u32> = const { std::cell::Cell::new(0) };
+}
+
+/// True while a guarded decoder runs on this thread: a panic hook uses it to
+/// stay quiet about panics that [`guarded`] turns into errors.
+pub fn decoding() -> bool {
+    DECODING.with(|d| d.get() > 0)
+}
+
+fn decode_err(path: &Path, format: Format, e: impl std::fmt::Display) -> Error {
+    Error::Decode { path: path.to_path_buf(), format, message: e.to_string() }
+}
+
+/// A table file opened for reading: its format and full schema.
+pub struct Table {
+    path: PathBuf,
+    format: Format,
+    schema: SchemaRef,
+    /// CSV: the inferred (or hinted) type of each column.
+    csv_types: Vec<ColumnType>,
+}
+
+impl Table {
+    /// Opens a table, inferring CSV and JSON Lines column types over the
+    /// whole file; columns named in `hints` take the hinted type instead.
+    ///
+    /// # Errors
+    /// Unreadable, empty or malformed files.
+    pub fn open(path: &Path, format: Format, hints: &TypeHints) -> Result<Table> {
+        let meta = std::fs::metadata(path).map_err(|e| Error::io(path, "cannot open", e))?;
+        if meta.is_dir() {
+            return Err(Error::malformed(path, "is a folder, not a file"));
+        }
+        if meta.len() == 0 {
+            return Err(Error::malformed(path, "the file is empty"));
+        }
+        let (schema, csv_types) = match format {
+            Format::Csv => {
+                let (names, types, _) = csv::infer(path, &|name| hints.get(name).copied())?;
+                (csv::schema_for(&names, &types), types)
+            }
+            Format::Parquet => {
+                check_magic(path, format, b"PAR1")?;
+                let schema = guarded(path, format, || {
+                    let file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
+                    let builder =
+                        ParquetRecordBatchReaderBuilder::try_new(file).map_err(|e| decode_err(path, format, e))?;
+                    Ok(builder.schema().clone())
+                })?;
+                (schema, Vec::new())
+            }
+            Format::Arrow => {
+                check_magic(path, format, b"ARROW1")?;
+                let schema = guarded(path, format, || {
+                    let file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
+                    let reader =
+                        arrow_ipc::reader::FileReader::try_new(file, None).map_err(|e| decode_err(path, format, e))?;
+                    Ok(reader.schema())
+                })?;
+                (schema, Vec::new())
+            }
+            Format::Jsonl => (infer_jsonl(path, hints)?, Vec::new()),
+        };
+        let table = Table { path: path.to_path_buf(), format, schema, csv_types };
+        table.check_names()?;
+        Ok(table)
+    }
+
+    fn check_names(&self) -> Result<()> {
+        let fields = self.schema.fields();
+        for (i, f) in fields.iter().enumerate() {
+            if f.name().is_empty() {
+                return Err(Error::malformed(&self.path, format!("column {} has no name", i + 1)));
+            }
+            if fields[..i].iter().any(|g| g.name() == f.name()) {
+                return Err(Error::malformed(&self.path, format!("column name `{}` appears twice", f.name())));
+            }
+        }
+        Ok(())
+    }
+
+    /// The file's path.
+    pub fn path(&self) -> &Path {
+        &self.path
+    }
+
+    /// The file's format.
+    pub fn format(&self) -> Format {
+        self.format
+    }
+
+    /// The full schema.
+    pub fn schema(&self) -> SchemaRef {
+        self.schema.clone()
+    }
+
+    /// The index of a column, or an error listing the columns there are.
+    ///
+    /// # Errors
+    /// [`Error::UnknownColumn`].
+    pub fn column_index(&self, name: &str) -> Result<usize> {
+        self.schema.index_of(name).map_err(|_| Error::UnknownColumn {
+            path: self.path.clone(),
+            column: name.to_string(),
+            available: self.schema.fields().iter().map(|f| f.name().as_str()).collect::<Vec<_>>().join(", "),
+        })
+    }
+
+    /// Streams the table's batches; `projection` limits them to the named
+    /// columns (in schema order); `keep_raw` keeps CSV records' bytes.
+    ///
+    /// # Errors
+    /// Unreadable files and unknown columns.
+    pub fn batches(&self, projection: Option<&[String]>, keep_raw: bool) -> Result<Batches> {
+        let indices = match projection {
+            Some(names) => {
+                let mut idx = names.iter().map(|n| self.column_index(n)).collect::<Result<Vec<_>>>()?;
+                idx.sort_unstable();
+                idx.dedup();
+                Some(idx)
+            }
+            None => None,
+        };
+        let (path, format) = (self.path.as_path(), self.format);
+        let inner = match format {
+            Format::Csv => BatchSource::Csv(Box::new(csv::CsvReader::open(
+                path,
+                self.csv_types.clone(),
+                indices,
+                BATCH_ROWS,
+                keep_raw,
+            )?)),
+            Format::Parquet => guarded(path, format, || {
+                let file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
+                let builder =
+                    ParquetRecordBatchReaderBuilder::try_new(file).map_err(|e| decode_err(path, format, e))?;
+                let builder = match &indices {
+                    Some(idx) => {
+                        let mask = ProjectionMask::roots(builder.parquet_schema(), idx.iter().copied());
+                        builder.with_projection(mask)
+                    }
+                    None => builder,
+                };
+                let reader = builder.with_batch_size(BATCH_ROWS).build().map_err(|e| decode_err(path, format, e))?;
+                Ok(BatchSource::Parquet(reader))
+            })?,
+            Format::Arrow => guarded(path, format, || {
+                let file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
+                let reader = arrow_ipc::reader::FileReader::try_new(BufReader::new(file), indices.clone())
+                    .map_err(|e| decode_err(path, format, e))?;
+                Ok(BatchSource::Ipc(reader))
+            })?,
+            Format::Jsonl => {
+                let file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
+                let reader = arrow_json::ReaderBuilder::new(self.schema.clone())
+                    .with_batch_size(BATCH_ROWS)
+                    .build(BufReader::new(file))
+                    .map_err(|e| decode_err(path, format, e))?;
+                BatchSource::Json { reader, projection: indices }
+            }
+        };
+        Ok(Batches { path: self.path.clone(), format, inner, rows: 0 })
+    }
+
+    /// The CSV header line to write at the top of a verbatim CSV partition.
+    pub fn csv_header(&self) -> Result<Vec<u8>> {
+        let reader = csv::CsvReader::open(&self.path, self.csv_types.clone(), Some(vec![]), 1, true)?;
+        Ok(reader.header_line())
+    }
+
+    /// Each column's type by meaning.
+    ///
+    /// # Errors
+    /// [`Error::UnsupportedType`] for a column cleave cannot digest, when
+    /// `strict`; otherwise such columns are left out.
+    pub fn column_types(&self) -> Vec<(String, Option<ColumnType>)> {
+        self.schema.fields().iter().map(|f| (f.name().clone(), ColumnType::of(f.data_type()))).collect()
+    }
+}
+
+fn check_magic(path: &Path, format: Format, magic: &[u8]) -> Result<()> {
+    let mut file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
+    let mut head = vec![0u8; magic.len()];
+    let ok = file.read_exact(&mut head).is_ok() && head == magic;
+    if ok {
+        return Ok(());
+    }
+    let hint = if format == Format::Arrow && head.starts_with(&[0xFF, 0xFF, 0xFF, 0xFF]) {
+        " (this looks like an Arrow IPC stream; cleave reads the IPC file form)"
+    } else {
+        ""
+    };
+    Err(Error::Decode {
+        path: path.to_path_buf(),
+        format,
+        message: format!("the file does not start with the {format} magic bytes{hint}"),
+    })
+}
+
+/// Infers a JSON Lines schema: arrow-json's inference, then text columns
+/// whose every value is an ISO 8601 date or RFC 3339 timestamp become dates
+/// or timestamps, as in CSV; `hints` override both.
+fn infer_jsonl(path: &Path, hints: &TypeHints) -> Result<SchemaRef> {
+    let format = Format::Jsonl;
+    let mut file = BufReader::new(File::open(path).map_err(|e| Error::io(path, "cannot open", e))?);
+    let (inferred, _) =
+        arrow_json::reader::infer_json_schema_from_seekable(&mut file, None).map_err(|e| decode_err(path, format, e))?;
+    file.rewind().map_err(|e| Error::io(path, "cannot read", e))?;
+    if inferred.fields().is_empty() {
+        return Err(Error::malformed(path, "no columns found"));
+    }
+    let inferred = Arc::new(inferred);
+    // Which text columns could be dates or timestamps?
+    let mut could: Vec<[bool; 3]> = vec![[true; 3]; inferred.fields().len()];
+    let mut seen = vec![false; inferred.fields().len()];
+    let reader = arrow_json::ReaderBuilder::new(inferred.clone())
+        .with_batch_size(BATCH_ROWS)
+        .build(file)
+        .map_err(|e| decode_err(path, format, e))?;
+    for batch in reader {
+        let batch = batch.map_err(|e| decode_err(path, format, e))?;
+        for (i, col) in batch.columns().iter().enumerate() {
+            let Some(text) = col.as_any().downcast_ref::<StringArray>() else { continue };
+            for v in text.iter().flatten() {
+                seen[i] = true;
+                let c = &mut could[i];
+                c[0] = c[0] && value::parse_date(v).is_some();
+                c[1] = c[1] && value::parse_timestamp(v).is_some();
+                c[2] = c[2] && value::parse_local_timestamp(v).is_some();
+            }
+        }
+    }
+    let fields: Vec<Field> = inferred
+        .fields()
+        .iter()
+        .enumerate()
+        .map(|(i, f)| {
+            let t = if let Some(hint) = hints.get(f.name()) {
+                hint.json_data_type().unwrap_or_else(|| f.data_type().clone())
+            } else if f.data_type() == &DataType::Utf8 && seen[i] {
+                match could[i] {
+                    [true, _, _] => DataType::Date32,
+                    [_, true, _] => DataType::Timestamp(TimeUnit::Microsecond, Some("UTC".into())),
+                    [_, _, true] => DataType::Timestamp(TimeUnit::Microsecond, None),
+                    _ => DataType::Utf8,
+                }
+            } else {
+                f.data_type().clone()
+            };
+            Field::new(f.name(), t, true)
+        })
+        .collect();
+    Ok(Arc::new(Schema::new(fields)))
+}
+
+impl ColumnType {
+    /// The Arrow type to decode a JSON value of this type into.
+    fn json_data_type(self) -> Option<DataType> {
+        Some(match self {
+            ColumnType::Integer => DataType::Int64,
+            ColumnType::Float => DataType::Float64,
+            ColumnType::Boolean => DataType::Boolean,
+            ColumnType::String => DataType::Utf8,
+            ColumnType::Date => DataType::Date32,
+            ColumnType::Timestamp => DataType::Timestamp(TimeUnit::Microsecond, Some("UTC".into())),
+            ColumnType::LocalTimestamp => DataType::Timestamp(TimeUnit::Microsecond, None),
+            _ => return None,
+        })
+    }
+}
+
+enum BatchSource {
+    Csv(Box<csv::CsvReader>),
+    Parquet(ParquetRecordBatchReader),
+    Ipc(arrow_ipc::reader::FileReader<BufReader<File>>),
+    Json { reader: arrow_json::Reader<BufReader<File>>, projection: Option<Vec<usize>> },
+}
+
+/// One batch of rows, with the CSV records' raw bytes when asked for.
+pub struct Batch {
+    /// The rows.
+    pub data: RecordBatch,
+    /// CSV only, when asked for: each record's bytes as in the file.
+    pub raw: Option<RawRows>,
+    /// 1-based number of the batch's first data row in the file.
+    pub first_row: u64,
+}
+
+/// A stream of batches from one file.
+pub struct Batches {
+    path: PathBuf,
+    format: Format,
+    inner: BatchSource,
+    rows: u64,
+}
+
+impl Batches {
+    /// The next batch, or `None` at the end.
+    ///
+    /// # Errors
+    /// Malformed data, with its place; decoder panics become errors.
+    pub fn next_batch(&mut self) -> Result<Option<Batch>> {
+        let (path, format) = (self.path.clone(), self.format);
+        let next = guarded(&path, format, || match &mut self.inner {
+            BatchSource::Csv(r) => Ok(r.next_batch()?),
+            BatchSource::Parquet(r) => r.next().transpose().map(|b| b.map(|b| (b, None))).map_err(|e| decode_err(&path, format, e)),
+            BatchSource::Ipc(r) => r.next().transpose().map(|b| b.map(|b| (b, None))).map_err(|e| decode_err(&path, format, e)),
+            BatchSource::Json { reader, projection } => {
+                let batch = reader.next().transpose().map_err(|e| decode_err(&path, format, e))?;
+                Ok(match (batch, projection) {
+                    (Some(b), Some(p)) => Some((b.project(p).map_err(|e| decode_err(&path, format, e))?, None)),
+                    (b, _) => b.map(|b| (b, None)),
+                })
+            }
+        })?;
+        Ok(next.map(|(data, raw)| {
+            let first_row = self.rows + 1;
+            self.rows += data.num_rows() as u64;
+            Batch { data, raw, first_row }
+        }))
+    }
+
+    /// Rows read so far.
+    pub fn rows(&self) -> u64 {
+        self.rows
+    }
+}
+
+/// The Parquet compression of a file's first column chunk, to write
+/// partitions the way the input was written.
+pub fn parquet_compression(path: &Path) -> Option<parquet::basic::Compression> {
+    let file = File::open(path).ok()?;
+    let reader = ParquetRecordBatchReaderBuilder::try_new(file).ok()?;
+    let meta = reader.metadata();
+    let rg = meta.row_groups().first()?;
+    Some(rg.columns().first()?.compression())
+}
+
+/// Checks that a column is all there is to check: not nested and not a type
+/// whose meaning cleave does not encode.
+///
+/// # Errors
+/// [`Error::UnsupportedType`].
+pub fn require_supported(path: &Path, field: &Field) -> Result<ColumnType> {
+    ColumnType::of(field.data_type()).ok_or_else(|| Error::UnsupportedType {
+        path: path.to_path_buf(),
+        column: field.name().clone(),
+        data_type: field.data_type().to_string(),
+    })
+}
+
+/// BLAKE3 and size of a whole file, streamed.
+///
+/// # Errors
+/// Unreadable files.
+pub fn hash_file(path: &Path) -> Result<FileSummary> {
+    let mut file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
+    let mut hasher = blake3::Hasher::new();
+    let mut buf = vec![0u8; 1 << 20];
+    let mut bytes = 0u64;
+    loop {
+        let n = match file.read(&mut buf) {
+            Ok(0) => break,
+            Ok(n) => n,
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
+            Err(e) => return Err(Error::io(path, "cannot read", e)),
+        };
+        hasher.update(&buf[..n]);
+        bytes += n as u64;
+    }
+    Ok(FileSummary { bytes, blake3: hasher.finalize().to_hex().to_string() })
+}
+
+/// Whether an array is entirely null (or empty).
+pub fn all_null(array: &dyn Array) -> bool {
+    array.null_count() == array.len()
+}

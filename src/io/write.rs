@@ -1,0 +1,192 @@
+//! Writing partition files, hashing every byte on its way to disk so that the
+//! manifest's file checksums need no second read.
+
+use std::fs::File;
+use std::io::{BufWriter, Write};
+use std::path::{Path, PathBuf};
+
+use arrow_array::RecordBatch;
+use arrow_schema::SchemaRef;
+use parquet::arrow::ArrowWriter;
+use parquet::basic::Compression;
+use parquet::file::properties::WriterProperties;
+
+use crate::error::{Error, Result};
+use crate::io::Format;
+
+/// Size and BLAKE3 of a written file.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct FileSummary {
+    /// Size in bytes.
+    pub bytes: u64,
+    /// BLAKE3-256, lowercase hex.
+    pub blake3: String,
+}
+
+/// A writer that hashes and counts what passes through it.
+struct Hashing<W> {
+    inner: W,
+    hasher: blake3::Hasher,
+    bytes: u64,
+}
+
+impl<W: Write> Write for Hashing<W> {
+    fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
+        let n = self.inner.write(buf)?;
+        self.hasher.update(&buf[..n]);
+        self.bytes += n as u64;
+        Ok(n)
+    }
+
+    fn flush(&mut self) -> std::io::Result<()> {
+        self.inner.flush()
+    }
+}
+
+type Sink = Hashing<BufWriter<File>>;
+
+enum Inner {
+    /// CSV records copied verbatim from a CSV input.
+    CsvRaw(Sink),
+    Csv(arrow_csv::Writer<Sink>),
+    Parquet(ArrowWriter<Sink>),
+    Ipc(arrow_ipc::writer::FileWriter<Sink>),
+    Json(arrow_json::LineDelimitedWriter<Sink>),
+}
+
+/// Writes one partition file.
+pub struct PartitionWriter {
+    path: PathBuf,
+    format: Format,
+    inner: Inner,
+}
+
+impl PartitionWriter {
+    /// Creates `path` (which must not exist). With `csv_header`, rows are
+    /// given as raw CSV records ([`PartitionWriter::write_raw`]) under that
+    /// header; otherwise as batches of `schema`.
+    ///
+    /// # Errors
+    /// The file cannot be created or the encoder refuses the schema.
+    pub fn create(
+        path: &Path,
+        format: Format,
+        schema: &SchemaRef,
+        csv_header: Option<&[u8]>,
+        compression: Option<Compression>,
+    ) -> Result<Self> {
+        let file = File::options()
+            .write(true)
+            .create_new(true)
+            .open(path)
+            .map_err(|e| Error::io(path, "cannot create", e))?;
+        let mut sink = Hashing { inner: BufWriter::with_capacity(1 << 20, file), hasher: blake3::Hasher::new(), bytes: 0 };
+        let enc = |e: &dyn std::fmt::Display| Error::Encode { path: path.to_path_buf(), format, message: e.to_string() };
+        let inner = match (format, csv_header) {
+            (Format::Csv, Some(header)) => {
+                sink.write_all(header).map_err(|e| Error::io(path, "cannot write", e))?;
+                Inner::CsvRaw(sink)
+            }
+            (Format::Csv, None) => Inner::Csv(
+                arrow_csv::WriterBuilder::new()
+                    .with_header(true)
+                    .with_date_format("%Y-%m-%d".into())
+                    .with_timestamp_format("%Y-%m-%dT%H:%M:%S%.f".into())
+                    .with_timestamp_tz_format("%Y-%m-%dT%H:%M:%S%.f%:z".into())
+                    .build(sink),
+            ),
+            (Format::Parquet, _) => {
+                let props = WriterProperties::builder()
+                    .set_compression(compression.unwrap_or(Compression::SNAPPY))
+                    .build();
+                Inner::Parquet(ArrowWriter::try_new(sink, schema.clone(), Some(props)).map_err(|e| enc(&e))?)
+            }
+            (Format::Arrow, _) => {
+                Inner::Ipc(arrow_ipc::writer::FileWriter::try_new(sink, schema).map_err(|e| enc(&e))?)
+            }
+            (Format::Jsonl, _) => Inner::Json(arrow_json::LineDelimitedWriter::new(sink)),
+        };
+        Ok(PartitionWriter { path: path.to_path_buf(), format, inner })
+    }
+
+    fn enc(&self, e: impl std::fmt::Display) -> Error {
+        Error::Encode { path: self.path.clone(), format: self.format, message: e.to_string() }
+    }
+
+    /// Appends a batch of rows.
+    ///
+    /// # Errors
+    /// Encoder or disk failures.
+    pub fn write_batch(&mut self, batch: &RecordBatch) -> Result<()> {
+        if batch.num_rows() == 0 {
+            return Ok(());
+        }
+        let r = match &mut self.inner {
+            Inner::CsvRaw(_) => unreachable!("raw CSV partitions take raw records"),
+            Inner::Csv(w) => w.write(batch).map_err(|e| e.to_string()),
+            Inner::Parquet(w) => w.write(batch).map_err(|e| e.to_string()),
+            Inner::Ipc(w) => w.write(batch).map_err(|e| e.to_string()),
+            Inner::Json(w) => w.write(batch).map_err(|e| e.to_string()),
+        };
+        r.map_err(|e| self.enc(e))
+    }
+
+    /// Appends raw CSV record bytes.
+    ///
+    /// # Errors
+    /// Disk failures.
+    pub fn write_raw(&mut self, bytes: &[u8]) -> Result<()> {
+        match &mut self.inner {
+            Inner::CsvRaw(sink) => sink.write_all(bytes).map_err(|e| Error::io(&self.path, "cannot write", e)),
+            _ => unreachable!("only raw CSV partitions take raw records"),
+        }
+    }
+
+    /// Whether this writer takes raw CSV records.
+    pub fn is_raw(&self) -> bool {
+        matches!(self.inner, Inner::CsvRaw(_))
+    }
+
+    /// Finishes the file, syncs it to disk and returns its size and BLAKE3.
+    ///
+    /// # Errors
+    /// Encoder or disk failures.
+    pub fn finish(self) -> Result<FileSummary> {
+        let path = self.path.clone();
+        let format = self.format;
+        let enc = |e: String| Error::Encode { path: path.clone(), format, message: e };
+        let sink = match self.inner {
+            Inner::CsvRaw(sink) => sink,
+            Inner::Csv(w) => w.into_inner(),
+            Inner::Parquet(w) => w.into_inner().map_err(|e| enc(e.to_string()))?,
+            Inner::Ipc(mut w) => {
+                w.finish().map_err(|e| enc(e.to_string()))?;
+                w.into_inner().map_err(|e| enc(e.to_string()))?
+            }
+            Inner::Json(mut w) => {
+                w.finish().map_err(|e| enc(e.to_string()))?;
+                w.into_inner()
+            }
+        };
+        let Hashing { inner, hasher, bytes } = sink;
+        let file = inner.into_inner().map_err(|e| Error::io(&path, "cannot write", e.into_error()))?;
+        file.sync_all().map_err(|e| Error::io(&path, "cannot sync", e))?;
+        Ok(FileSummary { bytes, blake3: hasher.finalize().to_hex().to_string() })
+    }
+}
+
+/// Writes a small file whole (seal files, the manifest), synced, and returns
+/// its summary.
+///
+/// # Errors
+/// Disk failures.
+pub fn write_small(path: &Path, bytes: &[u8]) -> Result<FileSummary> {
+    let mut file = File::options()
+        .write(true)
+        .create_new(true)
+        .open(path)
+        .map_err(|e| Error::io(path, "cannot create", e))?;
+    file.write_all(bytes).map_err(|e| Error::io(path, "cannot write", e))?;
+    file.sync_all().map_err(|e| Error::io(path, "cannot sync", e))?;
+    Ok(FileSummary { bytes: bytes.len() as u64, blake3: blake3::hash(bytes).to_hex().to_string() })
+}

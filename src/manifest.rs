@@ -1,0 +1,377 @@
+//! The manifest: what a split wrote, and the seal over it.
+//!
+//! `manifest.yaml` is YAML (described by `schemas/manifest.schema.json`). Its
+//! last line is `checksum: HEX`, the BLAKE3-256 of every byte before that
+//! line, exactly as stored: an edit to any field, comment or space is seen.
+//! That checksum is also the seal's identity, which an evaluator pins with
+//! `--expect-manifest`: a checksum catches accidents, a pin catches a
+//! re-sealed or rolled-back folder.
+//!
+//! Reading is strict: a size cap before parsing, unknown fields refused, the
+//! format version checked, and every file name a plain name inside the folder.
+
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+use serde::{Deserialize, Serialize};
+
+use crate::error::{Error, Result};
+use crate::io::{ColumnType, Format};
+use crate::split::{Partition, StratumColumn};
+
+/// The manifest format this build writes and reads.
+pub const FORMAT_VERSION: u32 = 1;
+/// The manifest's file name inside an output folder.
+pub const FILE_NAME: &str = "manifest.yaml";
+/// Manifests larger than this are refused before parsing.
+pub const MAX_BYTES: u64 = 64 << 20;
+
+/// The whole manifest.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Manifest {
+    /// Manifest format version.
+    pub format_version: u32,
+    /// The program that wrote it.
+    pub tool: Tool,
+    /// When it was written (RFC 3339, UTC; from `SOURCE_DATE_EPOCH` when set).
+    pub created: String,
+    /// The input file.
+    pub source: Source,
+    /// The options of the split.
+    pub options: SplitOptionsRecord,
+    /// How rows were digested.
+    pub digest: DigestRecord,
+    /// The strata, when stratified.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub strata: Option<StrataRecord>,
+    /// One entry per partition, in order train, validation, test.
+    pub partitions: Vec<PartitionRecord>,
+    /// The seal over the test partition.
+    pub seal: SealRecord,
+    /// BLAKE3 of everything above it; present when read from a file.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub checksum: Option<String>,
+}
+
+/// The program that wrote a manifest.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Tool {
+    /// Always `cleave`.
+    pub name: String,
+    /// Its version.
+    pub version: String,
+}
+
+/// The input file of a split.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Source {
+    /// File name (without folders: the manifest names no machine's paths).
+    pub file: String,
+    /// Its format.
+    pub format: Format,
+    /// Its size.
+    pub bytes: u64,
+    /// BLAKE3-256 of the file.
+    pub blake3: String,
+    /// Data rows read.
+    pub rows: u64,
+    /// Columns in file order with their types by meaning.
+    pub columns: Vec<ColumnRecord>,
+}
+
+/// A column and its type.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ColumnRecord {
+    /// Column name.
+    pub name: String,
+    /// Type by meaning.
+    #[serde(rename = "type")]
+    pub column_type: ColumnType,
+}
+
+/// The options a split ran with.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SplitOptionsRecord {
+    /// Shares as given, in partition order.
+    pub ratios: Vec<String>,
+    /// The seed.
+    pub seed: u64,
+    /// Stratify columns.
+    pub stratify: Vec<String>,
+    /// Quantile bins for numeric stratify columns.
+    pub bins: u32,
+    /// Key columns (every column when not given).
+    pub key: Vec<String>,
+    /// Label columns.
+    pub label: Vec<String>,
+    /// Format of the partition files.
+    pub output_format: Format,
+}
+
+/// How rows were digested.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct DigestRecord {
+    /// `blake3-128`.
+    pub algorithm: String,
+    /// `cleave-row-v1`.
+    pub encoding: String,
+    /// Feature columns in encoding order.
+    pub features: Vec<String>,
+    /// Label columns in encoding order.
+    pub labels: Vec<String>,
+    /// Whether digests are keyed.
+    pub keyed: bool,
+    /// The key's fingerprint, when keyed.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub key_fingerprint: Option<String>,
+}
+
+/// The strata of a stratified split.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct StrataRecord {
+    /// How each stratify column was used.
+    pub columns: Vec<StratumColumn>,
+    /// Number of strata.
+    pub count: u64,
+    /// Strata too small to reach every partition.
+    pub short: Vec<ShortStratum>,
+}
+
+/// A stratum with no rows in some partition.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ShortStratum {
+    /// Its label.
+    pub stratum: String,
+    /// Its rows.
+    pub rows: u64,
+    /// The partitions that got none of them.
+    pub missing_from: Vec<Partition>,
+}
+
+/// One partition file.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PartitionRecord {
+    /// Which partition.
+    pub name: Partition,
+    /// File name inside the folder.
+    pub file: String,
+    /// File format.
+    pub format: Format,
+    /// Data rows.
+    pub rows: u64,
+    /// File size.
+    pub bytes: u64,
+    /// BLAKE3-256 of the file.
+    pub blake3: String,
+    /// Order-independent digest of the partition's rows.
+    pub content_digest: String,
+    /// Rows per stratum (stratified splits).
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub strata: BTreeMap<String, u64>,
+}
+
+/// The seal over the test partition.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SealRecord {
+    /// The sealed partition (always test).
+    pub partition: Partition,
+    /// Whether the digests are keyed.
+    pub keyed: bool,
+    /// The seal's digest files.
+    pub files: Vec<SealFile>,
+}
+
+/// Kinds of digest the seal keeps.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum SealKind {
+    /// Every key column; the evaluator's part (it covers the labels).
+    Rows,
+    /// Key columns minus labels.
+    Features,
+    /// Features after normalisation.
+    Loose,
+}
+
+impl SealKind {
+    /// The kind's name.
+    pub fn name(self) -> &'static str {
+        match self {
+            SealKind::Rows => "rows",
+            SealKind::Features => "features",
+            SealKind::Loose => "loose",
+        }
+    }
+}
+
+/// One digest file of the seal.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SealFile {
+    /// What its digests cover.
+    pub kind: SealKind,
+    /// File name inside the folder.
+    pub file: String,
+    /// Whether it may go to the modelling team (false for row digests).
+    pub shareable: bool,
+    /// Number of records.
+    pub records: u64,
+    /// File size.
+    pub bytes: u64,
+    /// BLAKE3-256 of the file.
+    pub blake3: String,
+}
+
+impl Manifest {
+    /// The YAML text, ending with the checksum line.
+    ///
+    /// # Errors
+    /// Never in practice; serialisation of these types cannot fail.
+    pub fn to_text(&self) -> String {
+        let mut body = self.clone();
+        body.checksum = None;
+        let mut text = String::from("# cleave split manifest: edit nothing; the last line is a checksum of every byte above it.\n");
+        text.push_str(&serde_norway::to_string(&body).expect("manifest types serialise"));
+        let sum = blake3::hash(text.as_bytes()).to_hex().to_string();
+        text.push_str(&format!("checksum: {sum}\n"));
+        text
+    }
+
+    /// The partition record of `p`.
+    pub fn partition(&self, p: Partition) -> Option<&PartitionRecord> {
+        self.partitions.iter().find(|r| r.name == p)
+    }
+
+    /// The seal file of a kind.
+    pub fn seal_file(&self, kind: SealKind) -> Option<&SealFile> {
+        self.seal.files.iter().find(|f| f.kind == kind)
+    }
+}
+
+/// A manifest as read from disk, with what its checksum says.
+pub struct LoadedManifest {
+    /// The manifest file.
+    pub path: PathBuf,
+    /// Its folder.
+    pub dir: PathBuf,
+    /// The parsed manifest.
+    pub manifest: Manifest,
+    /// The checksum recorded on its last line.
+    pub recorded: String,
+    /// The BLAKE3 of the bytes above that line.
+    pub computed: String,
+}
+
+impl LoadedManifest {
+    /// Whether the recorded checksum matches the bytes.
+    pub fn intact(&self) -> bool {
+        self.recorded == self.computed
+    }
+
+    /// The path of a file the manifest names.
+    pub fn file(&self, name: &str) -> PathBuf {
+        self.dir.join(name)
+    }
+}
+
+/// Resolves `PATH` as given to verify/show: a folder means its manifest.
+pub fn resolve(path: &Path) -> PathBuf {
+    if path.is_dir() {
+        path.join(FILE_NAME)
+    } else {
+        path.to_path_buf()
+    }
+}
+
+fn manifest_err(path: &Path, what: impl Into<String>) -> Error {
+    Error::Manifest { path: path.to_path_buf(), what: what.into() }
+}
+
+/// A plain file name: no folders, no `..`, not absolute.
+pub fn is_plain_name(name: &str) -> bool {
+    !name.is_empty()
+        && name != "."
+        && name != ".."
+        && !name.contains('/')
+        && !name.contains('\\')
+        && !name.contains('\0')
+}
+
+/// Reads and parses a manifest. The checksum is computed but not enforced:
+/// callers decide (verify reports a mismatch, check refuses).
+///
+/// # Errors
+/// Unreadable, oversized, unparseable, of an unknown version, without a
+/// checksum line, or naming a path outside its folder.
+pub fn load(path: &Path) -> Result<LoadedManifest> {
+    let path = resolve(path);
+    let meta = std::fs::metadata(&path).map_err(|e| Error::io(&path, "cannot read the manifest", e))?;
+    if meta.len() > MAX_BYTES {
+        return Err(manifest_err(&path, format!("is {} bytes; manifests are at most {MAX_BYTES}", meta.len())));
+    }
+    let bytes = std::fs::read(&path).map_err(|e| Error::io(&path, "cannot read the manifest", e))?;
+    let text = std::str::from_utf8(&bytes).map_err(|_| manifest_err(&path, "is not valid UTF-8"))?;
+    let body_end = text
+        .trim_end_matches('\n')
+        .rfind('\n')
+        .map(|p| p + 1)
+        .ok_or_else(|| manifest_err(&path, "has no checksum line"))?;
+    let last = text[body_end..].trim_end_matches('\n');
+    let recorded = last
+        .strip_prefix("checksum: ")
+        .filter(|h| h.len() == 64 && h.bytes().all(|b| b.is_ascii_hexdigit()))
+        .ok_or_else(|| manifest_err(&path, "does not end with a `checksum: HEX` line"))?
+        .to_ascii_lowercase();
+    let computed = blake3::hash(text[..body_end].as_bytes()).to_hex().to_string();
+    let manifest: Manifest = serde_norway::from_str(text).map_err(|e| manifest_err(&path, format!("cannot be parsed: {e}")))?;
+    if manifest.format_version != FORMAT_VERSION {
+        return Err(manifest_err(
+            &path,
+            format!("has format version {}; this cleave reads version {FORMAT_VERSION}", manifest.format_version),
+        ));
+    }
+    if manifest.digest.algorithm != crate::digest::ALGORITHM || manifest.digest.encoding != crate::digest::ENCODING {
+        return Err(manifest_err(
+            &path,
+            format!(
+                "uses digest {} with encoding {}; this cleave knows {} with {}",
+                manifest.digest.algorithm,
+                manifest.digest.encoding,
+                crate::digest::ALGORITHM,
+                crate::digest::ENCODING
+            ),
+        ));
+    }
+    let names = manifest.partitions.iter().map(|p| &p.file).chain(manifest.seal.files.iter().map(|f| &f.file));
+    for name in names {
+        if !is_plain_name(name) {
+            return Err(manifest_err(&path, format!("names `{name}`, which is not a file inside its folder")));
+        }
+    }
+    let dir = path.parent().map(Path::to_path_buf).unwrap_or_default();
+    let dir = if dir.as_os_str().is_empty() { PathBuf::from(".") } else { dir };
+    Ok(LoadedManifest { path, dir, manifest, recorded, computed })
+}
+
+/// A pinned manifest checksum, checked for form.
+///
+/// # Errors
+/// Anything but 64 hexadecimal digits.
+pub fn parse_pin(text: &str) -> Result<String> {
+    let t = text.trim();
+    if t.len() == 64 && t.bytes().all(|b| b.is_ascii_hexdigit()) {
+        Ok(t.to_ascii_lowercase())
+    } else {
+        Err(Error::Options(format!("--expect-manifest `{text}` is not a 64-digit hexadecimal BLAKE3 checksum")))
+    }
+}

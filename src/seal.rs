@@ -1,0 +1,64 @@
+//! The seal's digest files.
+//!
+//! A seal file is a plain sequence of 24-byte records, sorted: a 16-byte
+//! digest, then the 1-based data row of the test partition it came from as a
+//! 64-bit little-endian integer. Sorted records make the content digest
+//! reproducible from the file and let `check` find a digest by binary search.
+
+use crate::digest::RowDigest;
+
+/// Bytes per record.
+pub const RECORD_BYTES: usize = 24;
+
+/// One sealed digest and the test row it came from.
+pub type SealRecord = (RowDigest, u64);
+
+/// The file bytes of a set of records (sorted here).
+pub fn encode(records: &mut [SealRecord]) -> Vec<u8> {
+    records.sort_unstable();
+    let mut out = Vec::with_capacity(records.len() * RECORD_BYTES);
+    for (digest, row) in records.iter() {
+        out.extend_from_slice(digest);
+        out.extend_from_slice(&row.to_le_bytes());
+    }
+    out
+}
+
+/// Parses seal file bytes.
+///
+/// # Errors
+/// A length that is not a whole number of records, or records out of order.
+pub fn decode(bytes: &[u8]) -> Result<Vec<SealRecord>, String> {
+    if bytes.len() % RECORD_BYTES != 0 {
+        return Err(format!("is {} bytes, not a whole number of {RECORD_BYTES}-byte records", bytes.len()));
+    }
+    let mut out = Vec::with_capacity(bytes.len() / RECORD_BYTES);
+    for chunk in bytes.chunks_exact(RECORD_BYTES) {
+        let mut digest = [0u8; 16];
+        digest.copy_from_slice(&chunk[..16]);
+        let row = u64::from_le_bytes(chunk[16..].try_into().expect("8 bytes"));
+        if let Some(prev) = out.last() {
+            if *prev > (digest, row) {
+                return Err(format!("records are out of order at record {}", out.len() + 1));
+            }
+        }
+        out.push((digest, row));
+    }
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn round_trip_and_refusals() {
+        let mut recs = vec![([9u8; 16], 2), ([1u8; 16], 1)];
+        let bytes = encode(&mut recs);
+        assert_eq!(decode(&bytes).unwrap(), vec![([1u8; 16], 1), ([9u8; 16], 2)]);
+        assert!(decode(&bytes[..23]).is_err());
+        let mut swapped = bytes[24..].to_vec();
+        swapped.extend_from_slice(&bytes[..24]);
+        assert!(decode(&swapped).unwrap_err().contains("out of order"));
+    }
+}

@@ -1,0 +1,344 @@
+//! Strata: which rows must be shared out together.
+//!
+//! A stratum is a combination of values of the `--stratify` columns. Text,
+//! booleans, dates and the like stand for themselves; a numeric column with
+//! more distinct values than `--bins` is cut into quantile bins first, and one
+//! with at most that many is taken value by value (a 0/1 label is a class, not
+//! a measurement). Null is a stratum of its own, and so is NaN.
+//!
+//! Quantile bins use the inverted empirical distribution (Hyndman and Fan's
+//! definition 1): with the n sorted values v, cut k of K is v[ceil(k n / K) - 1],
+//! equal cuts merge, and a value goes to the bin numbered by how many cuts lie
+//! strictly below it. So equal values always share a bin.
+
+use std::collections::{BTreeMap, HashMap, HashSet};
+
+use arrow_array::cast::AsArray;
+use arrow_array::types::Float64Type;
+use arrow_array::{Array, ArrayRef};
+use arrow_schema::DataType;
+
+use crate::digest::encode_value;
+use crate::error::{Error, Result};
+use crate::io::ColumnType;
+
+enum Column {
+    Categorical { name: String, ids: HashMap<Vec<u8>, u32>, labels: Vec<String>, codes: Vec<u32> },
+    Numeric { name: String, values: Vec<Option<f64>>, distinct: HashSet<u64>, keys: HashMap<Vec<u8>, (u32, String)>, codes: Vec<u32> },
+}
+
+/// Collects stratum values row by row (pass one of a split).
+pub struct StrataBuilder {
+    columns: Vec<Column>,
+    bins: usize,
+}
+
+/// How one stratify column was used.
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct StratumColumn {
+    /// The column.
+    pub name: String,
+    /// Cut into quantile bins (numeric with more than `--bins` distinct values).
+    pub binned: bool,
+    /// Number of distinct strata this column contributes.
+    pub levels: u32,
+}
+
+/// The strata of a table: one id per row, ids ordered by label.
+pub struct Strata {
+    /// Stratum id of every row.
+    pub row_stratum: Vec<u32>,
+    /// Readable label of each stratum, e.g. `bloom_class=high`.
+    pub labels: Vec<String>,
+    /// Rows per stratum.
+    pub sizes: Vec<u64>,
+    /// How each column was used.
+    pub columns: Vec<StratumColumn>,
+}
+
+fn display(array: &ArrayRef, row: usize) -> String {
+    if array.is_null(row) {
+        return "<null>".into();
+    }
+    arrow_cast::display::array_value_to_string(array, row).unwrap_or_else(|_| "?".into())
+}
+
+impl StrataBuilder {
+    /// A builder for the given columns and their types.
+    pub fn new(columns: &[(String, ColumnType)], bins: usize) -> Self {
+        let columns = columns
+            .iter()
+            .map(|(name, t)| {
+                if t.is_numeric() {
+                    Column::Numeric {
+                        name: name.clone(),
+                        values: Vec::new(),
+                        distinct: HashSet::new(),
+                        keys: HashMap::new(),
+                        codes: Vec::new(),
+                    }
+                } else {
+                    Column::Categorical { name: name.clone(), ids: HashMap::new(), labels: Vec::new(), codes: Vec::new() }
+                }
+            })
+            .collect();
+        StrataBuilder { columns, bins }
+    }
+
+    /// Adds a batch; `arrays` holds the stratify columns in builder order.
+    ///
+    /// # Errors
+    /// Values that cannot be encoded.
+    pub fn push(&mut self, arrays: &[ArrayRef]) -> Result<()> {
+        let bins = self.bins;
+        for (col, array) in self.columns.iter_mut().zip(arrays) {
+            match col {
+                Column::Categorical { name, ids, labels, codes } => {
+                    for row in 0..array.len() {
+                        let key = encode_value(array, row, name)?;
+                        let next = ids.len() as u32;
+                        let id = *ids.entry(key).or_insert_with(|| {
+                            labels.push(display(array, row));
+                            next
+                        });
+                        codes.push(id);
+                    }
+                }
+                Column::Numeric { name, values, distinct, keys, codes } => {
+                    let floats = arrow_cast::cast(array, &DataType::Float64).map_err(|e| {
+                        Error::Options(format!("--stratify: column `{name}` cannot be read as numbers: {e}"))
+                    })?;
+                    let floats = floats.as_primitive::<Float64Type>();
+                    for row in 0..array.len() {
+                        if floats.is_null(row) {
+                            values.push(None);
+                        } else {
+                            let v = floats.value(row);
+                            values.push(Some(if v == 0.0 { 0.0 } else { v }));
+                        }
+                        // Keep exact value identities while they may still be few.
+                        if distinct.len() <= bins {
+                            if let Some(v) = values.last().copied().flatten() {
+                                distinct.insert(v.to_bits());
+                            }
+                            let key = encode_value(array, row, name)?;
+                            let next = keys.len() as u32;
+                            let id = keys.entry(key).or_insert_with(|| (next, display(array, row))).0;
+                            codes.push(id);
+                        }
+                    }
+                }
+            }
+        }
+        Ok(())
+    }
+
+    /// Settles bins and numbers the strata in label order.
+    pub fn finish(self) -> Strata {
+        let bins = self.bins;
+        // Per column: code per row, a rank per code (sort order) and a label per code.
+        let mut per_column: Vec<(Vec<u32>, Vec<u32>, Vec<String>, StratumColumn)> = Vec::new();
+        for col in self.columns {
+            match col {
+                Column::Categorical { name, labels, codes, .. } => {
+                    let ranks = rank_by_label(&labels);
+                    let info = StratumColumn { name: name.clone(), binned: false, levels: labels.len() as u32 };
+                    let labels = labels.iter().map(|l| format!("{name}={l}")).collect();
+                    per_column.push((codes, ranks, labels, info));
+                }
+                Column::Numeric { name, values, distinct, keys, codes } => {
+                    if distinct.len() <= bins {
+                        let mut labels = vec![String::new(); keys.len()];
+                        let mut value_of = vec![f64::NAN; keys.len()];
+                        for (id, label) in keys.values() {
+                            labels[*id as usize] = label.clone();
+                        }
+                        for (code, v) in codes.iter().zip(&values) {
+                            if let Some(v) = v {
+                                value_of[*code as usize] = *v;
+                            }
+                        }
+                        // Numbers in numeric order, then NaN, then null.
+                        let mut order: Vec<u32> = (0..keys.len() as u32).collect();
+                        order.sort_by(|&a, &b| {
+                            let key = |c: u32| {
+                                let v = value_of[c as usize];
+                                (labels[c as usize] == "<null>", v.is_nan(), v)
+                            };
+                            let (ka, kb) = (key(a), key(b));
+                            ka.0.cmp(&kb.0).then(ka.1.cmp(&kb.1)).then(ka.2.total_cmp(&kb.2))
+                        });
+                        let mut ranks = vec![0; keys.len()];
+                        for (r, &c) in order.iter().enumerate() {
+                            ranks[c as usize] = r as u32;
+                        }
+                        let info = StratumColumn { name: name.clone(), binned: false, levels: keys.len() as u32 };
+                        let labels = labels.iter().map(|l| format!("{name}={l}")).collect();
+                        per_column.push((codes, ranks, labels, info));
+                    } else {
+                        per_column.push(quantile_bins(&name, &values, bins));
+                    }
+                }
+            }
+        }
+        combine(per_column)
+    }
+}
+
+fn rank_by_label(labels: &[String]) -> Vec<u32> {
+    let mut order: Vec<usize> = (0..labels.len()).collect();
+    // Null last; otherwise by label text.
+    order.sort_by(|&a, &b| (labels[a] == "<null>", &labels[a]).cmp(&(labels[b] == "<null>", &labels[b])));
+    let mut ranks = vec![0; labels.len()];
+    for (r, &i) in order.iter().enumerate() {
+        ranks[i] = r as u32;
+    }
+    ranks
+}
+
+fn shortest(v: f64) -> String {
+    let mut b = ryu::Buffer::new();
+    let s = b.format(v);
+    s.strip_suffix(".0").unwrap_or(s).to_string()
+}
+
+fn quantile_bins(name: &str, values: &[Option<f64>], k: usize) -> (Vec<u32>, Vec<u32>, Vec<String>, StratumColumn) {
+    let mut sorted: Vec<f64> = values.iter().flatten().copied().filter(|v| !v.is_nan()).collect();
+    sorted.sort_by(f64::total_cmp);
+    let n = sorted.len();
+    let mut cuts: Vec<f64> = (1..k).map(|j| sorted[(j * n).div_ceil(k) - 1]).collect();
+    cuts.dedup();
+    let nbins = cuts.len() + 1;
+    let (nan_code, null_code) = (nbins as u32, nbins as u32 + 1);
+    let mut lo = vec![f64::INFINITY; nbins];
+    let mut hi = vec![f64::NEG_INFINITY; nbins];
+    let mut used_nan = false;
+    let mut used_null = false;
+    let codes: Vec<u32> = values
+        .iter()
+        .map(|v| match v {
+            None => {
+                used_null = true;
+                null_code
+            }
+            Some(v) if v.is_nan() => {
+                used_nan = true;
+                nan_code
+            }
+            Some(v) => {
+                let b = cuts.partition_point(|c| c < v);
+                lo[b] = lo[b].min(*v);
+                hi[b] = hi[b].max(*v);
+                b as u32
+            }
+        })
+        .collect();
+    let mut labels: Vec<String> =
+        (0..nbins).map(|b| format!("{name}=[{}, {}]", shortest(lo[b]), shortest(hi[b]))).collect();
+    labels.push(format!("{name}=NaN"));
+    labels.push(format!("{name}=<null>"));
+    let ranks = (0..nbins as u32 + 2).collect();
+    let levels = nbins as u32 + used_nan as u32 + used_null as u32;
+    (codes, ranks, labels, StratumColumn { name: name.to_string(), binned: true, levels })
+}
+
+fn combine(per_column: Vec<(Vec<u32>, Vec<u32>, Vec<String>, StratumColumn)>) -> Strata {
+    let columns: Vec<StratumColumn> = per_column.iter().map(|c| c.3.clone()).collect();
+    let rows = per_column.first().map_or(0, |c| c.0.len());
+    // Distinct rank tuples, numbered in sorted order.
+    let mut tuple_ids: BTreeMap<Vec<u32>, u32> = BTreeMap::new();
+    let mut provisional = Vec::with_capacity(rows);
+    let mut index: HashMap<Vec<u32>, u32> = HashMap::new();
+    let mut tuples: Vec<Vec<u32>> = Vec::new();
+    for row in 0..rows {
+        let t: Vec<u32> = per_column.iter().map(|c| c.1[c.0[row] as usize]).collect();
+        let next = tuples.len() as u32;
+        let id = *index.entry(t.clone()).or_insert_with(|| {
+            tuples.push(t);
+            next
+        });
+        provisional.push(id);
+    }
+    for t in &tuples {
+        tuple_ids.insert(t.clone(), 0);
+    }
+    for (i, v) in tuple_ids.values_mut().enumerate() {
+        *v = i as u32;
+    }
+    let remap: Vec<u32> = tuples.iter().map(|t| tuple_ids[t]).collect();
+    let mut sizes = vec![0u64; tuples.len()];
+    let row_stratum: Vec<u32> = provisional
+        .iter()
+        .map(|&p| {
+            let id = remap[p as usize];
+            sizes[id as usize] += 1;
+            id
+        })
+        .collect();
+    // Labels: rank -> code per column, then the code's label.
+    let code_of_rank: Vec<HashMap<u32, u32>> = per_column
+        .iter()
+        .map(|c| c.1.iter().enumerate().map(|(code, &rank)| (rank, code as u32)).collect())
+        .collect();
+    let mut labels: Vec<String> = tuple_ids
+        .keys()
+        .map(|t| {
+            t.iter()
+                .enumerate()
+                .map(|(ci, rank)| per_column[ci].2[code_of_rank[ci][rank] as usize].clone())
+                .collect::<Vec<_>>()
+                .join(", ")
+        })
+        .collect();
+    // Labels must name strata uniquely (the manifest keys counts by label).
+    let mut seen: HashMap<String, u32> = HashMap::new();
+    for l in labels.iter_mut() {
+        let n = seen.entry(l.clone()).or_insert(0);
+        *n += 1;
+        if *n > 1 {
+            l.push_str(&format!(" #{n}"));
+        }
+    }
+    Strata { row_stratum, labels, sizes, columns }
+}
+
+/// The strata of a table with no `--stratify`: one stratum of every row.
+pub fn single(rows: u64) -> Strata {
+    Strata { row_stratum: vec![0; rows as usize], labels: vec!["all".into()], sizes: vec![rows], columns: vec![] }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::sync::Arc;
+
+    use arrow_array::{Float64Array, Int64Array, StringArray};
+
+    #[test]
+    fn categorical_with_null_stratum() {
+        let mut b = StrataBuilder::new(&[("class".into(), ColumnType::String)], 5);
+        let a: ArrayRef = Arc::new(StringArray::from(vec![Some("b"), None, Some("a"), Some("b")]));
+        b.push(&[a]).unwrap();
+        let s = b.finish();
+        assert_eq!(s.labels, ["class=a", "class=b", "class=<null>"]);
+        assert_eq!(s.row_stratum, [1, 2, 0, 1]);
+        assert_eq!(s.sizes, [1, 2, 1]);
+    }
+
+    #[test]
+    fn few_numbers_are_classes_many_are_binned() {
+        let mut b = StrataBuilder::new(&[("y".into(), ColumnType::Integer)], 5);
+        let a: ArrayRef = Arc::new(Int64Array::from(vec![1, 0, 1, 1, 0]));
+        b.push(&[a]).unwrap();
+        assert_eq!(b.finish().labels, ["y=0", "y=1"]);
+
+        // 1..=10 in 5 bins: cuts at v[1], v[3], v[5], v[7] = 2, 4, 6, 8.
+        let mut b = StrataBuilder::new(&[("x".into(), ColumnType::Float)], 5);
+        let a: ArrayRef = Arc::new(Float64Array::from((1..=10).map(|v| v as f64).collect::<Vec<_>>()));
+        b.push(&[a]).unwrap();
+        let s = b.finish();
+        assert_eq!(s.labels, ["x=[1, 2]", "x=[3, 4]", "x=[5, 6]", "x=[7, 8]", "x=[9, 10]"]);
+        assert_eq!(s.sizes, [2, 2, 2, 2, 2]);
+    }
+}

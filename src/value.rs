@@ -1,0 +1,436 @@
+//! Values by meaning: parsing CSV text into typed values, and the canonical
+//! decimal form of numbers that row digests use.
+//!
+//! A number's canonical form is `[-]DIGITSeEXP`, meaning DIGITS x 10^EXP, with
+//! no leading or trailing zeros in DIGITS (zero is `0e0`). So the integer 150,
+//! the float 150.0 and the decimal 150.00 all read `15e1`, and 1.5 reads
+//! `15e-1`. Floats contribute their shortest round-trip decimal digits (the
+//! digits Python's `repr` and Rust's `Display` print). Not-a-number is `nan`,
+//! the infinities `inf` and `-inf`; -0.0 is zero.
+
+use chrono::{DateTime, NaiveDate, NaiveDateTime};
+
+/// Parses an integer: `-?[0-9]+` without leading zeros, fitting in 64 bits.
+///
+/// Leading zeros (`007`) mark identifiers, not quantities, so such text stays
+/// text (common practice: postal codes and station codes keep their zeros).
+pub fn parse_integer(text: &str) -> Option<i64> {
+    let digits = text.strip_prefix('-').unwrap_or(text);
+    if digits.is_empty() || !digits.bytes().all(|b| b.is_ascii_digit()) {
+        return None;
+    }
+    if digits.len() > 1 && digits.starts_with('0') {
+        return None;
+    }
+    text.parse().ok()
+}
+
+/// Parses a decimal number (`-?INT(.DIGITS)?([eE][+-]?DIGITS)?`), or one of
+/// `NaN`, `inf`, `-inf`, `Infinity`, `-Infinity`.
+pub fn parse_float(text: &str) -> Option<f64> {
+    match text {
+        "NaN" => return Some(f64::NAN),
+        "inf" | "Infinity" => return Some(f64::INFINITY),
+        "-inf" | "-Infinity" => return Some(f64::NEG_INFINITY),
+        _ => {}
+    }
+    let b = text.as_bytes();
+    let mut i = 0;
+    if b.first() == Some(&b'-') {
+        i += 1;
+    }
+    let int_start = i;
+    while i < b.len() && b[i].is_ascii_digit() {
+        i += 1;
+    }
+    let int_len = i - int_start;
+    if int_len == 0 || (int_len > 1 && b[int_start] == b'0') {
+        return None;
+    }
+    if i < b.len() && b[i] == b'.' {
+        i += 1;
+        let frac_start = i;
+        while i < b.len() && b[i].is_ascii_digit() {
+            i += 1;
+        }
+        if i == frac_start {
+            return None;
+        }
+    }
+    if i < b.len() && (b[i] == b'e' || b[i] == b'E') {
+        i += 1;
+        if i < b.len() && (b[i] == b'+' || b[i] == b'-') {
+            i += 1;
+        }
+        let exp_start = i;
+        while i < b.len() && b[i].is_ascii_digit() {
+            i += 1;
+        }
+        if i == exp_start {
+            return None;
+        }
+    }
+    if i != b.len() {
+        return None;
+    }
+    let v: f64 = text.parse().ok()?;
+    // Text too large for a double (1e400) is not silently infinity.
+    v.is_finite().then_some(v)
+}
+
+/// Parses `true` or `false`, in any letter case.
+pub fn parse_bool(text: &str) -> Option<bool> {
+    if text.eq_ignore_ascii_case("true") {
+        Some(true)
+    } else if text.eq_ignore_ascii_case("false") {
+        Some(false)
+    } else {
+        None
+    }
+}
+
+const EPOCH_DAYS_FROM_CE: i32 = 719_163;
+
+/// Parses an ISO 8601 calendar date `YYYY-MM-DD` into days since 1970-01-01.
+pub fn parse_date(text: &str) -> Option<i32> {
+    if text.len() != 10 || text.as_bytes()[4] != b'-' || text.as_bytes()[7] != b'-' {
+        return None;
+    }
+    let d = NaiveDate::parse_from_str(text, "%Y-%m-%d").ok()?;
+    Some(chrono::Datelike::num_days_from_ce(&d) - EPOCH_DAYS_FROM_CE)
+}
+
+fn micros_exact(nanos: u32) -> bool {
+    nanos % 1000 == 0
+}
+
+/// Parses an RFC 3339 timestamp with an offset (`Z` or `+02:00`) into
+/// microseconds since the epoch, UTC. More than microsecond precision is
+/// refused rather than rounded away.
+pub fn parse_timestamp(text: &str) -> Option<i64> {
+    if text.len() < 20 {
+        return None;
+    }
+    let t = DateTime::parse_from_rfc3339(text).ok()?;
+    micros_exact(t.timestamp_subsec_nanos()).then(|| t.timestamp_micros())
+}
+
+/// Parses a date and time without an offset (`2024-05-01T08:30:00`, a space
+/// allowed for the `T`) into microseconds since the epoch, read as UTC.
+pub fn parse_local_timestamp(text: &str) -> Option<i64> {
+    if text.len() < 19 || !text.as_bytes()[..4].iter().all(|b| b.is_ascii_digit()) {
+        return None;
+    }
+    let t = NaiveDateTime::parse_from_str(text, "%Y-%m-%dT%H:%M:%S%.f")
+        .or_else(|_| NaiveDateTime::parse_from_str(text, "%Y-%m-%d %H:%M:%S%.f"))
+        .ok()?;
+    let t = t.and_utc();
+    micros_exact(t.timestamp_subsec_nanos()).then(|| t.timestamp_micros())
+}
+
+/// Cell text cut to a readable length for messages, control characters escaped.
+pub fn shorten(text: &str) -> String {
+    let mut out: String = text.chars().take(40).flat_map(char::escape_debug).collect();
+    if text.chars().count() > 40 {
+        out.push('…');
+    }
+    out
+}
+
+/// A number as sign, significant digits and a power of ten.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Canonical {
+    negative: bool,
+    /// ASCII digits without leading or trailing zeros; empty for zero.
+    digits: Vec<u8>,
+    exponent: i64,
+}
+
+impl Canonical {
+    fn new(negative: bool, digits: &[u8], exponent: i64) -> Self {
+        let start = digits.iter().position(|&d| d != b'0').unwrap_or(digits.len());
+        let digits = &digits[start..];
+        let end = digits.iter().rposition(|&d| d != b'0').map_or(0, |p| p + 1);
+        let exponent = exponent + (digits.len() - end) as i64;
+        let digits = digits[..end].to_vec();
+        if digits.is_empty() {
+            return Canonical { negative: false, digits, exponent: 0 };
+        }
+        Canonical { negative, digits, exponent }
+    }
+
+    /// From an integer of up to 128 bits.
+    pub fn from_i128(v: i128) -> Self {
+        Self::from_scaled(v, 0)
+    }
+
+    /// From an unscaled integer and a decimal scale (value = v x 10^-scale).
+    pub fn from_scaled(v: i128, scale: i64) -> Self {
+        let mut buf = itoa_u128(v.unsigned_abs());
+        let digits = std::mem::take(&mut buf);
+        Self::new(v < 0, &digits, -scale)
+    }
+
+    /// From Rust's shortest round-trip text of a finite float.
+    fn from_shortest(text: &str) -> Self {
+        let (negative, rest) = match text.strip_prefix('-') {
+            Some(r) => (true, r),
+            None => (false, text),
+        };
+        let (mantissa, exp) = match rest.find(['e', 'E']) {
+            Some(p) => (&rest[..p], rest[p + 1..].parse::<i64>().expect("float text has an integer exponent")),
+            None => (rest, 0),
+        };
+        let mut digits = Vec::with_capacity(mantissa.len());
+        let mut frac = 0i64;
+        let mut after_point = false;
+        for b in mantissa.bytes() {
+            if b == b'.' {
+                after_point = true;
+            } else {
+                digits.push(b);
+                if after_point {
+                    frac += 1;
+                }
+            }
+        }
+        Self::new(negative, &digits, exp - frac)
+    }
+
+    /// Rounds to `n` significant digits, half away from zero.
+    pub fn round_significant(&self, n: usize) -> Self {
+        if self.digits.len() <= n {
+            return self.clone();
+        }
+        let mut kept = self.digits[..n].to_vec();
+        let mut exponent = self.exponent + (self.digits.len() - n) as i64;
+        if self.digits[n] >= b'5' {
+            let mut i = n;
+            loop {
+                if i == 0 {
+                    kept.insert(0, b'1');
+                    kept.pop();
+                    exponent += 1;
+                    break;
+                }
+                i -= 1;
+                if kept[i] == b'9' {
+                    kept[i] = b'0';
+                } else {
+                    kept[i] += 1;
+                    break;
+                }
+            }
+        }
+        Self::new(self.negative, &kept, exponent)
+    }
+
+    /// Appends the canonical text `[-]DIGITSeEXP`.
+    pub fn write(&self, out: &mut Vec<u8>) {
+        if self.digits.is_empty() {
+            out.extend_from_slice(b"0e0");
+            return;
+        }
+        if self.negative {
+            out.push(b'-');
+        }
+        out.extend_from_slice(&self.digits);
+        out.push(b'e');
+        out.extend_from_slice(self.exponent.to_string().as_bytes());
+    }
+}
+
+fn itoa_u128(mut v: u128) -> Vec<u8> {
+    if v == 0 {
+        return vec![b'0'];
+    }
+    let mut out = Vec::with_capacity(40);
+    while v > 0 {
+        out.push(b'0' + (v % 10) as u8);
+        v /= 10;
+    }
+    out.reverse();
+    out
+}
+
+/// A non-finite float's canonical text, or `None` for a finite one.
+fn non_finite(v: f64) -> Option<&'static [u8]> {
+    if v.is_nan() {
+        Some(b"nan")
+    } else if v == f64::INFINITY {
+        Some(b"inf")
+    } else if v == f64::NEG_INFINITY {
+        Some(b"-inf")
+    } else {
+        None
+    }
+}
+
+/// Canonical form of a double; `None` for NaN and the infinities.
+pub fn canonical_f64(v: f64) -> Option<Canonical> {
+    if non_finite(v).is_some() {
+        return None;
+    }
+    if v == 0.0 {
+        return Some(Canonical::new(false, b"", 0));
+    }
+    let mut buf = ryu::Buffer::new();
+    Some(Canonical::from_shortest(buf.format_finite(v)))
+}
+
+/// Canonical form of a single-precision float, from its own shortest digits
+/// (so 0.1f32 reads `1e-1`, as it was written).
+pub fn canonical_f32(v: f32) -> Option<Canonical> {
+    if non_finite(v as f64).is_some() {
+        return None;
+    }
+    if v == 0.0 {
+        return Some(Canonical::new(false, b"", 0));
+    }
+    let mut buf = ryu::Buffer::new();
+    Some(Canonical::from_shortest(buf.format_finite(v)))
+}
+
+/// Appends the canonical text of a double, non-finite values included.
+pub fn write_f64(v: f64, out: &mut Vec<u8>) {
+    match canonical_f64(v) {
+        Some(c) => c.write(out),
+        None => out.extend_from_slice(non_finite(v).expect("not finite")),
+    }
+}
+
+/// Appends the canonical text of a single-precision float.
+pub fn write_f32(v: f32, out: &mut Vec<u8>) {
+    match canonical_f32(v) {
+        Some(c) => c.write(out),
+        None => out.extend_from_slice(non_finite(v as f64).expect("not finite")),
+    }
+}
+
+/// Appends the canonical text of a 64-bit integer without allocating.
+pub fn write_i64(v: i64, out: &mut Vec<u8>) {
+    if v == 0 {
+        out.extend_from_slice(b"0e0");
+        return;
+    }
+    let mut mag = v.unsigned_abs();
+    let mut exp = 0u32;
+    while mag % 10 == 0 {
+        mag /= 10;
+        exp += 1;
+    }
+    if v < 0 {
+        out.push(b'-');
+    }
+    let mut buf = itoa_buf::Buf::default();
+    out.extend_from_slice(buf.format(mag));
+    out.push(b'e');
+    out.extend_from_slice(buf.format(exp as u64));
+}
+
+/// Appends the canonical text of an unsigned 64-bit integer.
+pub fn write_u64(v: u64, out: &mut Vec<u8>) {
+    if v <= i64::MAX as u64 {
+        write_i64(v as i64, out);
+    } else {
+        Canonical::from_i128(v as i128).write(out);
+    }
+}
+
+mod itoa_buf {
+    /// A small stack buffer for decimal digits of a u64.
+    #[derive(Default)]
+    pub struct Buf {
+        bytes: [u8; 20],
+    }
+
+    impl Buf {
+        pub fn format(&mut self, mut v: u64) -> &[u8] {
+            let mut i = self.bytes.len();
+            loop {
+                i -= 1;
+                self.bytes[i] = b'0' + (v % 10) as u8;
+                v /= 10;
+                if v == 0 {
+                    break;
+                }
+            }
+            &self.bytes[i..]
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn text_f64(v: f64) -> String {
+        let mut out = Vec::new();
+        write_f64(v, &mut out);
+        String::from_utf8(out).unwrap()
+    }
+
+    fn text_i64(v: i64) -> String {
+        let mut out = Vec::new();
+        write_i64(v, &mut out);
+        String::from_utf8(out).unwrap()
+    }
+
+    #[test]
+    fn integers_and_integral_floats_read_the_same() {
+        for (i, f) in [(150i64, 150.0f64), (0, -0.0), (-7, -7.0), (1_000_000, 1e6), (123456789012345, 123456789012345.0)] {
+            assert_eq!(text_i64(i), text_f64(f));
+        }
+        assert_eq!(text_i64(150), "15e1");
+        assert_eq!(text_i64(i64::MIN), "-9223372036854775808e0");
+        assert_eq!(text_f64(1.5), "15e-1");
+        assert_eq!(text_f64(0.001), "1e-3");
+        assert_eq!(text_f64(f64::NAN), "nan");
+        let mut out = Vec::new();
+        Canonical::from_scaled(15000, 2).write(&mut out);
+        assert_eq!(out, b"15e1");
+    }
+
+    // Shortest round-trip digits as printed by Python's repr (values from
+    // memory of `repr(0.1 + 0.2)` and `repr(1/3)`).
+    #[test]
+    fn shortest_round_trip_digits() {
+        assert_eq!(text_f64(0.1 + 0.2), "30000000000000004e-17");
+        assert_eq!(text_f64(1.0 / 3.0), "3333333333333333e-16");
+        assert_eq!(text_f64(1e300), "1e300");
+        assert_eq!(text_f64(5e-324), "5e-324");
+    }
+
+    #[test]
+    fn round_to_six_significant_digits() {
+        let r = |v: f64| {
+            let mut out = Vec::new();
+            canonical_f64(v).unwrap().round_significant(6).write(&mut out);
+            String::from_utf8(out).unwrap()
+        };
+        assert_eq!(r(3.14159265), "314159e-5");
+        assert_eq!(r(2.7182818), "271828e-5");
+        assert_eq!(r(9.9999996), "1e1");
+        assert_eq!(r(1234565.0), "123457e1");
+        assert_eq!(r(-0.000123456789), "-123457e-9");
+    }
+
+    #[test]
+    fn csv_text_recognition() {
+        assert_eq!(parse_integer("42"), Some(42));
+        assert_eq!(parse_integer("007"), None);
+        assert_eq!(parse_integer("-0"), Some(0));
+        assert_eq!(parse_float("1.50"), Some(1.5));
+        assert_eq!(parse_float("1e400"), None);
+        assert_eq!(parse_float(".5"), None);
+        assert_eq!(parse_float("1."), None);
+        assert_eq!(parse_bool("TRUE"), Some(true));
+        assert_eq!(parse_date("1970-01-02"), Some(1));
+        assert_eq!(parse_date("2024-02-30"), None);
+        // RFC 3339 section 5.8 examples.
+        assert_eq!(parse_timestamp("1985-04-12T23:20:50.52Z"), Some(482196050520000));
+        assert_eq!(parse_timestamp("1996-12-19T16:39:57-08:00"), Some(851042397000000));
+        assert_eq!(parse_timestamp("1937-01-01T12:00:27.87+00:20"), Some(-1041337172130000));
+        assert_eq!(parse_local_timestamp("1970-01-01 00:00:01"), Some(1_000_000));
+    }
+}
