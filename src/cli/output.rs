@@ -29,19 +29,21 @@ pub fn warn(message: &str) {
     let _ = writeln!(std::io::stderr(), "warning: {}", sanitize(message));
 }
 
-/// An error on stderr: one line, then one line per cause not already in it.
+/// An error on stderr: one line, the context first, then each cause not
+/// already said, joined by `: `.
 pub fn error(e: &anyhow::Error) {
-    let mut err = std::io::stderr().lock();
-    let top = e.to_string();
-    let _ = writeln!(err, "error: {}", sanitize(&top));
-    let mut shown = top;
-    for cause in e.chain().skip(1) {
+    let mut line = String::new();
+    for cause in e.chain() {
         let c = cause.to_string();
-        if !shown.contains(&c) {
-            let _ = writeln!(err, "  caused by: {}", sanitize(&c));
-            shown.push_str(&c);
+        if line.contains(&c) {
+            continue;
         }
+        if !line.is_empty() {
+            line.push_str(": ");
+        }
+        line.push_str(&c);
     }
+    let _ = writeln!(std::io::stderr(), "error: {}", sanitize(&line));
 }
 
 /// Whether an error is stdout closed by the reader (`cleave ... | head`).

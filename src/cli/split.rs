@@ -22,7 +22,7 @@ pub struct Args {
     #[arg(long, value_name = "DIR")]
     out: PathBuf,
     /// Train, validation and test shares in percent or fractions; two values mean train,test.
-    #[arg(long, default_value = "70,15,15", value_name = "SHARES")]
+    #[arg(long, default_value = "70,15,15", value_name = "SHARES", allow_hyphen_values = true)]
     ratios: String,
     /// Seed for the assignment; recorded in the manifest.
     #[arg(long, default_value_t = 0)]

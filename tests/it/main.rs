@@ -1,1 +1,8 @@
+//! Integration tests: the real `cleave` binary on real files.
 
+mod bad_input;
+mod formats;
+mod reference;
+mod split;
+mod util;
+mod verify;

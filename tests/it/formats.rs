@@ -1,0 +1,153 @@
+//! The same table in any format, column order or CSV spelling gives the
+//! same digests and the same split.
+
+use std::sync::Arc;
+
+use arrow_schema::{DataType, Field, Schema, TimeUnit};
+
+use crate::util::{fixture, manifest, Test};
+
+/// What must not depend on the format: partition sizes, content digests
+/// and the seal files' bytes.
+fn identity(t: &Test, input: &str, out: &str, extra: &[&str]) -> Vec<String> {
+    let mut args = vec!["split", input, "--out", out, "--seed", "5", "--stratify", "bloom_class", "--label", "bloom_class"];
+    args.extend_from_slice(extra);
+    t.ok(&args);
+    let m = manifest(&t.path(out));
+    let mut v = Vec::new();
+    for p in m["partitions"].as_sequence().unwrap() {
+        v.push(format!("{} {} {}", p["name"].as_str().unwrap(), p["rows"].as_u64().unwrap(), p["content_digest"].as_str().unwrap()));
+    }
+    for f in ["rows", "features", "loose"] {
+        v.push(blake3::hash(&std::fs::read(t.path(&format!("{out}/seal.{f}.bin"))).unwrap()).to_hex().to_string());
+    }
+    v
+}
+
+fn demo_schema() -> Arc<Schema> {
+    let f = |n: &str, t: DataType| Field::new(n, t, true);
+    Arc::new(Schema::new(vec![
+        f("station", DataType::Utf8),
+        f("river", DataType::Utf8),
+        f("sample_time", DataType::Timestamp(TimeUnit::Millisecond, Some("+00:00".into()))),
+        f("bloom_class", DataType::Utf8),
+        f("water_temp_c", DataType::Float64),
+        f("ph", DataType::Float64),
+        f("dissolved_oxygen_mg_l", DataType::Float64),
+        f("turbidity_ntu", DataType::Float64),
+        f("conductivity_us_cm", DataType::Int32),
+        f("nitrate_mg_l", DataType::Float64),
+        f("phosphate_mg_l", DataType::Float64),
+        f("chlorophyll_ug_l", DataType::Float64),
+        f("note", DataType::Utf8),
+    ]))
+}
+
+/// The demo table read by arrow-csv (arrow-rs's own CSV reader, with a
+/// declared schema and other storage types: 32-bit integers, millisecond
+/// times, a numeric time-zone offset), written as Parquet and Arrow IPC with the columns reversed.
+fn write_with_arrow(t: &Test) {
+    let file = std::fs::File::open(fixture("water-quality.csv")).unwrap();
+    let reader = arrow_csv::ReaderBuilder::new(demo_schema()).with_header(true).build(file).unwrap();
+    let batches: Vec<_> = reader.map(|b| b.unwrap()).collect();
+    let reversed: Vec<usize> = (0..13).rev().collect();
+    let projected: Vec<_> = batches.iter().map(|b| b.project(&reversed).unwrap()).collect();
+    let schema = projected[0].schema();
+    let pq = std::fs::File::create(t.path("wq.parquet")).unwrap();
+    let mut w = parquet::arrow::ArrowWriter::try_new(pq, schema.clone(), None).unwrap();
+    for b in &projected {
+        w.write(b).unwrap();
+    }
+    w.close().unwrap();
+    let ipc = std::fs::File::create(t.path("wq.arrow")).unwrap();
+    let mut w = arrow_ipc::writer::FileWriter::try_new(ipc, &schema).unwrap();
+    for b in &projected {
+        w.write(b).unwrap();
+    }
+    w.finish().unwrap();
+}
+
+#[test]
+fn csv_parquet_arrow_and_shuffled_columns_give_the_same_split() {
+    let t = Test::new();
+    t.demo();
+    write_with_arrow(&t);
+    let csv = identity(&t, "water-quality.csv", "a", &[]);
+    assert_eq!(csv, identity(&t, "wq.parquet", "b", &[]), "Parquet, columns reversed");
+    assert_eq!(csv, identity(&t, "wq.arrow", "c", &[]), "Arrow IPC, columns reversed");
+}
+
+#[test]
+fn output_formats_round_trip_to_the_same_digests() {
+    let t = Test::new();
+    t.demo();
+    let csv = identity(&t, "water-quality.csv", "csv", &[]);
+    for f in ["parquet", "arrow", "jsonl"] {
+        let out = format!("out-{f}");
+        assert_eq!(csv, identity(&t, "water-quality.csv", &out, &["--output-format", f]), "{f}");
+        t.ok(&["verify", &out]);
+        // And each written partition splits back to the same digests as input.
+    }
+    let again = identity(&t, "out-parquet/train.parquet", "re-pq", &["--ratios", "50,50"]);
+    let from_csv = identity(&t, "csv/train.csv", "re-csv", &["--ratios", "50,50"]);
+    assert_eq!(again, from_csv);
+    let from_jsonl = identity(&t, "out-jsonl/train.jsonl", "re-jsonl", &["--ratios", "50,50"]);
+    assert_eq!(from_jsonl, from_csv);
+}
+
+/// RFC 4180: CRLF record ends (section 2, rule 1), optional quotes around any
+/// field (rule 5), doubled quotes (rule 7); plus a UTF-8 byte-order mark and
+/// LF endings, the extensions cleave documents.
+#[test]
+fn csv_spellings_of_one_table_digest_the_same() {
+    let lf = "station,note,ph\nA,\"two\nlines\",7.1\nB,\"say \"\"hi\"\"\",7.2\nC,,6.9\nD,plain,7.0\n";
+    let crlf = lf.replace('\n', "\r\n").replace("two\r\nlines", "two\nlines");
+    let bom = format!("\u{feff}{crlf}");
+    let quoted = "\"station\",\"note\",\"ph\"\n\"A\",\"two\nlines\",\"7.1\"\n\"B\",\"say \"\"hi\"\"\",7.20\nC,\"\",6.9\n\"D\",\"plain\",7\n";
+    let t = Test::new();
+    let mut ids = Vec::new();
+    for (i, text) in [lf.to_string(), crlf, bom, quoted.to_string()].iter().enumerate() {
+        let name = format!("t{i}.csv");
+        t.write(&name, text);
+        let out = format!("o{i}");
+        t.ok(&["split", &name, "--out", &out, "--ratios", "50,50"]);
+        let m = manifest(&t.path(&out));
+        let p = m["partitions"].as_sequence().unwrap();
+        ids.push(p.iter().map(|p| p["content_digest"].as_str().unwrap().to_string()).collect::<Vec<_>>());
+    }
+    // "7" and "7.0" are one number; an empty quoted field is null like an empty one.
+    for other in &ids[1..] {
+        assert_eq!(&ids[0], other);
+    }
+}
+
+#[test]
+fn json_lines_key_order_and_missing_keys() {
+    let t = Test::new();
+    t.write("a.jsonl", "{\"id\":1,\"v\":\"x\",\"t\":\"2024-05-01T08:00:00Z\"}\n{\"id\":2,\"v\":null,\"t\":\"2024-05-02T08:00:00Z\"}\n{\"id\":3,\"v\":\"z\",\"t\":\"2024-05-03T08:00:00Z\"}\n{\"id\":4,\"v\":\"w\",\"t\":\"2024-05-04T08:00:00Z\"}\n");
+    t.write("b.jsonl", "{\"t\":\"2024-05-01T08:00:00Z\",\"v\":\"x\",\"id\":1}\n{\"id\":2,\"t\":\"2024-05-02T10:00:00+02:00\"}\n{\"v\":\"z\",\"id\":3.0,\"t\":\"2024-05-03T08:00:00Z\"}\n{\"id\":4,\"v\":\"w\",\"t\":\"2024-05-04T08:00:00Z\"}\n");
+    t.write("c.csv", "id,v,t\n1,x,2024-05-01T08:00:00Z\n2,,2024-05-02T08:00:00Z\n3,z,2024-05-03T08:00:00Z\n4,w,2024-05-04T08:00:00Z\n");
+    let digests = |input: &str, out: &str| {
+        t.ok(&["split", input, "--out", out, "--ratios", "50,50"]);
+        let m = manifest(&t.path(out));
+        m["partitions"].as_sequence().unwrap().iter().map(|p| p["content_digest"].as_str().unwrap().to_string()).collect::<Vec<_>>()
+    };
+    let a = digests("a.jsonl", "oa");
+    assert_eq!(a, digests("b.jsonl", "ob"), "key order, a missing key as null, 3.0 as 3, an offset as the same instant");
+    assert_eq!(a, digests("c.csv", "oc"), "JSON Lines and CSV");
+}
+
+#[test]
+fn partitions_in_parquet_keep_the_input_compression() {
+    let t = Test::new();
+    t.demo();
+    write_with_arrow(&t);
+    t.ok(&["split", "wq.parquet", "--out", "out"]);
+    let file = std::fs::File::open(t.path("out/test.parquet")).unwrap();
+    let r = parquet::file::reader::SerializedFileReader::new(file).unwrap();
+    use parquet::file::reader::FileReader;
+    let c = r.metadata().row_group(0).column(0).compression();
+    let file = std::fs::File::open(t.path("wq.parquet")).unwrap();
+    let r2 = parquet::file::reader::SerializedFileReader::new(file).unwrap();
+    assert_eq!(c, r2.metadata().row_group(0).column(0).compression());
+}
