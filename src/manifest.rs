@@ -241,7 +241,11 @@ impl Manifest {
         let mut body = self.clone();
         body.checksum = None;
         let mut text = String::from("# cleave split manifest: edit nothing; the last line is a checksum of every byte above it.\n");
-        text.push_str(&serde_norway::to_string(&body).expect("manifest types serialise"));
+        let yaml = serde_norway::to_string(&body).expect("manifest types serialise");
+        // YAML 1.1 readers (PyYAML among them) would turn an unquoted RFC 3339
+        // time into a timestamp object; quote it so every reader sees text.
+        let created = format!("created: {}\n", body.created);
+        text.push_str(&yaml.replacen(&created, &format!("created: '{}'\n", body.created), 1));
         let sum = blake3::hash(text.as_bytes()).to_hex().to_string();
         text.push_str(&format!("checksum: {sum}\n"));
         text

@@ -1,1 +1,60 @@
+//! Checks against references outside the project, run by
+//! tests/python/reference.py (each check names its source there):
+//! Palmer penguins and Fisher's iris from PyPI packages, the blake3 package,
+//! pyarrow, jsonschema, and an independent implementation of cleave-row-v1.
+//! They need `pip install -r tests/python/requirements.txt` (`.ci/run` does it).
 
+use std::process::Command;
+
+use crate::util::BIN;
+
+fn reference(check: &str) {
+    let work = tempfile::tempdir().unwrap();
+    let script = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/python/reference.py");
+    let out = Command::new("python3")
+        .args([script, check, BIN])
+        .arg(work.path())
+        .output()
+        .expect("python3 runs (the reference checks need it; see tests/python/requirements.txt)");
+    assert!(
+        out.status.success(),
+        "reference check `{check}` failed:\n{}\n{}",
+        String::from_utf8_lossy(&out.stdout),
+        String::from_utf8_lossy(&out.stderr)
+    );
+}
+
+#[test]
+fn independent_encoding_reproduces_every_sealed_digest() {
+    reference("digests");
+}
+
+#[test]
+fn digest_vectors_agree_with_the_independent_encoding() {
+    reference("vectors");
+}
+
+#[test]
+fn palmer_penguins_exact_class_counts() {
+    reference("penguins");
+}
+
+#[test]
+fn fisher_iris_exact_class_counts_from_json_lines() {
+    reference("iris");
+}
+
+#[test]
+fn checksums_equal_the_blake3_package() {
+    reference("blake3");
+}
+
+#[test]
+fn pyarrow_parquet_gives_the_same_split_and_reads_partitions_back() {
+    reference("pyarrow");
+}
+
+#[test]
+fn manifests_validate_against_the_schema() {
+    reference("schema");
+}

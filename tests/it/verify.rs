@@ -71,7 +71,7 @@ fn any_edited_manifest_field_is_caught() {
     let edits: [(&str, &str); 8] = [
         ("seed: 0", "seed: 1"),
         ("rows: 450", "rows: 451"),
-        ("created: 2023-11-14T22:13:20Z", "created: 2023-11-14T22:13:21Z"),
+        ("created: '2023-11-14T22:13:20Z'", "created: '2023-11-14T22:13:21Z'"),
         ("bins: 5", "bins: 6"),
         ("keyed: false", "keyed: true"),
         ("  - '70'", "  - '71'"),

@@ -1,0 +1,368 @@
+"""Checks of cleave against references outside the project.
+
+Run by the Rust integration tests (tests/it/reference.rs) as
+    python3 tests/python/reference.py CHECK CLEAVE_BINARY WORK_DIR
+Each check exits 0 when it holds and raises (exit 1) with a message when not.
+
+References used, named beside each check:
+- Palmer penguins (Horst, Hill and Gorman 2020, CC0), from the PyPI package
+  palmerpenguins: 344 rows, Adelie 152, Gentoo 124, Chinstrap 68.
+- Fisher's iris (Fisher 1936), from the PyPI package vega_datasets: 150
+  rows, 50 per species.
+- BLAKE3: the PyPI package blake3 (bindings to the reference implementation).
+- Apache Arrow: pyarrow reads and writes Parquet independently of arrow-rs.
+- JSON Schema 2020-12: the PyPI package jsonschema validates the manifest.
+- cleave-row-v1: re-implemented below from its description in DEVELOPERS.md,
+  with Python's own float repr, unicodedata and str.casefold.
+"""
+
+import csv
+import io
+import json
+import os
+import shutil
+import subprocess
+import sys
+import unicodedata
+from collections import Counter
+from datetime import datetime, timezone
+
+import blake3
+import jsonschema
+import pyarrow as pa
+import pyarrow.csv as pacsv
+import pyarrow.parquet as pq
+import yaml
+
+ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+FIXTURES = os.path.join(ROOT, "fixtures")
+ENV = dict(os.environ, SOURCE_DATE_EPOCH="1700000000")
+
+
+def cleave(binary, *args, cwd):
+    r = subprocess.run([binary, *args], cwd=cwd, env=ENV, capture_output=True, text=True)
+    if r.returncode != 0:
+        raise AssertionError(f"cleave {' '.join(args)} exited {r.returncode}: {r.stderr}")
+    return r.stdout
+
+
+def manifest(folder):
+    with open(os.path.join(folder, "manifest.yaml")) as f:
+        return yaml.safe_load(f)
+
+
+# ---- cleave-row-v1, written from the specification --------------------------
+
+ROW_CONTEXT = "cleave 2026-12-02 row digest v1"
+LOOSE_CONTEXT = "cleave 2026-12-02 loose digest v1"
+
+
+def canonical_digits(text):
+    """Decimal text -> (negative, digits, exponent) with no leading/trailing zeros."""
+    neg = text.startswith("-")
+    t = text.lstrip("-")
+    exp = 0
+    if "e" in t or "E" in t:
+        t, e = t.replace("E", "e").split("e")
+        exp = int(e)
+    if "." in t:
+        i, f = t.split(".")
+        exp -= len(f)
+        t = i + f
+    t = t.lstrip("0")
+    if not t:
+        return (False, "", 0)
+    stripped = t.rstrip("0")
+    exp += len(t) - len(stripped)
+    return (neg, stripped, exp)
+
+
+def number_text(neg, digits, exp):
+    if not digits:
+        return "0e0"
+    return ("-" if neg else "") + digits + "e" + str(exp)
+
+
+def round_significant(neg, digits, exp, n=6):
+    if len(digits) <= n:
+        return (neg, digits, exp)
+    kept = int(digits[:n])
+    exp += len(digits) - n
+    if digits[n] >= "5":
+        kept += 1
+    return canonical_digits(("-" if neg else "") + str(kept) + "e" + str(exp))
+
+
+def float_text(v, loose=False):
+    if v != v:
+        return "nan"
+    if v in (float("inf"), float("-inf")):
+        return "inf" if v > 0 else "-inf"
+    if v == 0:
+        return "0e0"
+    parts = canonical_digits(repr(v))
+    if loose:
+        parts = round_significant(*parts)
+    return number_text(*parts)
+
+
+def normalise(s):
+    s = unicodedata.normalize("NFKC", unicodedata.normalize("NFKC", s).casefold())
+    return " ".join(s.split())
+
+
+def with_len(tag, body):
+    return bytes([tag]) + len(body).to_bytes(4, "little") + body
+
+
+def encode(ctype, text, loose=False):
+    """One CSV cell (None for null) of a column of the given cleave type."""
+    if text is None:
+        return b"\x00"
+    if ctype == "integer":
+        return with_len(2, number_text(*canonical_digits(str(int(text)))).encode())
+    if ctype == "float":
+        return with_len(2, float_text(float(text), loose).encode())
+    if ctype == "boolean":
+        return b"\x01" + (b"\x01" if text.lower() == "true" else b"\x00")
+    if ctype == "date":
+        return with_len(5, text.encode())
+    if ctype == "timestamp":
+        t = datetime.fromisoformat(text.replace("Z", "+00:00")).astimezone(timezone.utc)
+        s = t.strftime("%Y-%m-%dT%H:%M:%S")
+        if t.microsecond:
+            s += ("." + f"{t.microsecond:06d}").rstrip("0")
+        return with_len(6, (s + "Z").encode())
+    if ctype == "string":
+        return with_len(3, (normalise(text) if loose else text).encode())
+    raise ValueError(f"no reference encoding for type {ctype}")
+
+
+def names_material(*lists):
+    m = b"u"
+    for names in lists:
+        m += len(names).to_bytes(4, "little")
+        for n in names:
+            b = n.encode()
+            m += len(b).to_bytes(4, "little") + b
+    return m
+
+
+def row_digests(header, types, row, features, labels):
+    """(row, features, loose) digests of one row given as CSV cells."""
+    cell = {h: (v if v != "" else None) for h, v in zip(header, row)}
+    row_key = blake3.blake3(names_material(features, labels), derive_key_context=ROW_CONTEXT).digest()
+    loose_key = blake3.blake3(names_material(features, []), derive_key_context=LOOSE_CONTEXT).digest()
+    f = b"".join(encode(types[c], cell[c]) for c in features)
+    l = b"".join(encode(types[c], cell[c]) for c in labels)
+    lo = b"".join(encode(types[c], cell[c], loose=True) for c in features)
+    h = lambda key, data: blake3.blake3(data, key=key).digest()[:16]
+    return h(row_key, f + l), h(row_key, f), h(loose_key, lo), f + l
+
+
+def seal_records(path):
+    with open(path, "rb") as fh:
+        data = fh.read()
+    return [(data[i : i + 16], int.from_bytes(data[i + 16 : i + 24], "little")) for i in range(0, len(data), 24)]
+
+
+def read_csv(path):
+    with open(path, newline="", encoding="utf-8-sig") as fh:
+        rows = list(csv.reader(fh))
+    return rows[0], rows[1:]
+
+
+# ---- the checks --------------------------------------------------------------
+
+
+def check_digests(binary, work):
+    """An independent implementation of cleave-row-v1 reproduces every sealed digest."""
+    shutil.copy(os.path.join(FIXTURES, "water-quality.csv"), work)
+    cleave(binary, "split", "water-quality.csv", "--out", "out", "--label", "bloom_class", "--stratify", "bloom_class", cwd=work)
+    m = manifest(os.path.join(work, "out"))
+    types = {c["name"]: c["type"] for c in m["source"]["columns"]}
+    features, labels = m["digest"]["features"], m["digest"]["labels"]
+    assert features == sorted(c for c in types if c != "bloom_class"), features
+    header, rows = read_csv(os.path.join(work, "out", "test.csv"))
+    expect = {"rows": [], "features": [], "loose": []}
+    for i, r in enumerate(rows, start=1):
+        d_row, d_feat, d_loose, _ = row_digests(header, types, r, features, labels)
+        expect["rows"].append((d_row, i))
+        expect["features"].append((d_feat, i))
+        expect["loose"].append((d_loose, i))
+    for kind, recs in expect.items():
+        got = seal_records(os.path.join(work, "out", f"seal.{kind}.bin"))
+        assert got == sorted(recs), f"seal.{kind}.bin differs from the reference encoding"
+    # Content digest: derive-key BLAKE3 over the sorted row digests.
+    for part in m["partitions"]:
+        header, rows = read_csv(os.path.join(work, "out", part["file"]))
+        ds = sorted(row_digests(header, types, r, features, labels)[0] for r in rows)
+        content = blake3.blake3(b"".join(ds), derive_key_context="cleave 2026-12-02 content digest v1").hexdigest()
+        assert content == part["content_digest"], part["name"]
+    print(f"reproduced {len(rows)} test rows and 3 content digests")
+
+
+def check_vectors(binary, work):
+    """fixtures/digest-vectors.json holds what this reference computes for fixtures/digest-vectors.csv."""
+    header, rows = read_csv(os.path.join(FIXTURES, "digest-vectors.csv"))
+    with open(os.path.join(FIXTURES, "digest-vectors.json")) as fh:
+        vectors = json.load(fh)
+    types, features, labels = vectors["types"], vectors["features"], vectors["labels"]
+    assert len(rows) == len(vectors["rows"])
+    for r, v in zip(rows, vectors["rows"]):
+        d_row, d_feat, d_loose, enc = row_digests(header, types, r, features, labels)
+        assert enc.hex() == v["encoding"], (v["data_row"], enc.hex())
+        assert (d_row.hex(), d_feat.hex(), d_loose.hex()) == (v["row"], v["features"], v["loose"]), v["data_row"]
+    print(f"{len(rows)} vectors agree")
+
+
+def make_vectors(binary, work):
+    """Writes fixtures/digest-vectors.json from this reference implementation."""
+    header, rows = read_csv(os.path.join(FIXTURES, "digest-vectors.csv"))
+    types = {"id": "integer", "amount": "float", "flag": "boolean", "day": "date", "at": "timestamp", "text": "string", "class": "string"}
+    features, labels = sorted(c for c in header if c != "class"), ["class"]
+    out = {"encoding": "cleave-row-v1", "types": types, "features": features, "labels": labels, "rows": []}
+    for i, r in enumerate(rows, start=1):
+        d_row, d_feat, d_loose, enc = row_digests(header, types, r, features, labels)
+        out["rows"].append({"data_row": i, "encoding": enc.hex(), "row": d_row.hex(), "features": d_feat.hex(), "loose": d_loose.hex()})
+    with open(os.path.join(FIXTURES, "digest-vectors.json"), "w") as fh:
+        json.dump(out, fh, indent=1)
+        fh.write("\n")
+
+
+def largest_remainder_ok(n, counts, shares):
+    return sum(counts) == n and all(abs(c - n * s) < 1 for c, s in zip(counts, shares))
+
+
+def check_penguins(binary, work):
+    """Palmer penguins split 70/15/15 by species: exact per-class counts."""
+    import palmerpenguins
+
+    src = os.path.join(os.path.dirname(palmerpenguins.__file__), "data", "penguins.csv")
+    shutil.copy(src, os.path.join(work, "penguins.csv"))
+    out = json.loads(cleave(binary, "split", "penguins.csv", "--out", "out", "--stratify", "species", "--label", "species", "--json", cwd=work))
+    assert out["rows"] == 344, out
+    got = {}
+    for p in ("train", "validation", "test"):
+        _, rows = read_csv(os.path.join(work, "out", f"{p}.csv"))
+        got[p] = Counter(r[0] for r in rows)
+    totals = {s: sum(got[p][s] for p in got) for s in ("Adelie", "Gentoo", "Chinstrap")}
+    assert totals == {"Adelie": 152, "Gentoo": 124, "Chinstrap": 68}, totals
+    # Worked by hand with largest remainder (strata in name order; ties to the
+    # partition furthest below its running share, then the earlier one):
+    # Adelie 106.4/22.8/22.8 -> 106/23/23; Chinstrap 47.6/10.2/10.2 -> 48/10/10;
+    # Gentoo 86.8/18.6/18.6 -> 87/19/18.
+    expected = {"Adelie": (106, 23, 23), "Chinstrap": (48, 10, 10), "Gentoo": (87, 19, 18)}
+    for s, want in expected.items():
+        have = tuple(got[p][s] for p in ("train", "validation", "test"))
+        assert have == want, (s, have, want)
+        assert largest_remainder_ok(totals[s], have, (0.7, 0.15, 0.15))
+    print("penguins:", {s: tuple(got[p][s] for p in got) for s in expected})
+
+
+def check_iris(binary, work):
+    """Fisher's iris as JSON Lines, split 70/15/15 by species: 35 / 7 or 8 / 7 or 8."""
+    from vega_datasets import data
+
+    iris = data.iris()
+    assert len(iris) == 150
+    with open(os.path.join(work, "iris.jsonl"), "w") as fh:
+        for rec in iris.to_dict(orient="records"):
+            fh.write(json.dumps(rec) + "\n")
+    cleave(binary, "split", "iris.jsonl", "--out", "out", "--stratify", "species", "--output-format", "csv", cwd=work)
+    got = {}
+    for p in ("train", "validation", "test"):
+        header, rows = read_csv(os.path.join(work, "out", f"{p}.csv"))
+        col = header.index("species")
+        got[p] = Counter(r[col] for r in rows)
+    # 50 x 0.7 = 35 exactly; 7.5 and 7.5 share the last row by the tie rule:
+    # setosa -> validation, versicolor -> test (now furthest below), virginica -> validation.
+    expected = {"setosa": (35, 8, 7), "versicolor": (35, 7, 8), "virginica": (35, 8, 7)}
+    for s, want in expected.items():
+        have = tuple(got[p][s] for p in ("train", "validation", "test"))
+        assert have == want, (s, have)
+    print("iris:", expected)
+
+
+def check_blake3(binary, work):
+    """Every checksum in the manifest equals the blake3 package's hash of the file."""
+    shutil.copy(os.path.join(FIXTURES, "water-quality.csv"), work)
+    for fmt in ("csv", "parquet"):
+        out = f"out-{fmt}"
+        cleave(binary, "split", "water-quality.csv", "--out", out, "--output-format", fmt, cwd=work)
+        m = manifest(os.path.join(work, out))
+        with open(os.path.join(work, "water-quality.csv"), "rb") as fh:
+            assert blake3.blake3(fh.read()).hexdigest() == m["source"]["blake3"]
+        for entry in m["partitions"] + m["seal"]["files"]:
+            with open(os.path.join(work, out, entry["file"]), "rb") as fh:
+                data = fh.read()
+            assert blake3.blake3(data).hexdigest() == entry["blake3"], entry["file"]
+            assert len(data) == entry["bytes"], entry["file"]
+        with open(os.path.join(work, out, "manifest.yaml"), "rb") as fh:
+            text = fh.read()
+        body, last = text.rstrip(b"\n").rsplit(b"\n", 1)
+        assert last == b"checksum: " + blake3.blake3(body + b"\n").hexdigest().encode()
+    print("checksums agree")
+
+
+def check_pyarrow(binary, work):
+    """pyarrow writes the demo table as Parquet (columns shuffled); cleave splits it like the CSV,
+    and pyarrow reads the Parquet partitions back with the same rows in input order."""
+    shutil.copy(os.path.join(FIXTURES, "water-quality.csv"), work)
+    table = pacsv.read_csv(os.path.join(work, "water-quality.csv"), convert_options=pacsv.ConvertOptions(strings_can_be_null=True))
+    cols = table.column_names
+    shuffled = [cols[i] for i in (5, 0, 12, 3, 8, 1, 11, 2, 7, 4, 10, 6, 9)]
+    pq.write_table(table.select(shuffled), os.path.join(work, "wq.parquet"), compression="zstd")
+    args = ["--seed", "4", "--stratify", "bloom_class", "--label", "bloom_class"]
+    cleave(binary, "split", "water-quality.csv", "--out", "from-csv", *args, cwd=work)
+    cleave(binary, "split", "wq.parquet", "--out", "from-pq", *args, cwd=work)
+    a, b = manifest(os.path.join(work, "from-csv")), manifest(os.path.join(work, "from-pq"))
+    for pa_, pb in zip(a["partitions"], b["partitions"]):
+        assert (pa_["rows"], pa_["content_digest"]) == (pb["rows"], pb["content_digest"]), pa_["name"]
+    for fa, fb in zip(a["seal"]["files"], b["seal"]["files"]):
+        assert fa["blake3"] == fb["blake3"], fa["kind"]
+    # Partitions read back by pyarrow: disjoint, complete, in input order.
+    source = table.select(shuffled).to_pylist()
+    position = {}
+    for i, r in enumerate(source):
+        position.setdefault(tuple(sorted(r.items(), key=lambda kv: kv[0])), []).append(i)
+    seen = []
+    for p in b["partitions"]:
+        part = pq.read_table(os.path.join(work, "from-pq", p["file"]))
+        assert part.schema.names == shuffled, "partitions keep the input's columns"
+        assert part.num_rows == p["rows"]
+        meta = pq.ParquetFile(os.path.join(work, "from-pq", p["file"])).metadata
+        assert meta.row_group(0).column(0).compression == "ZSTD", "partitions keep the input's codec"
+        idx = [position[tuple(sorted(r.items(), key=lambda kv: kv[0]))].pop(0) for r in part.to_pylist()]
+        assert idx == sorted(idx), f"{p['name']} keeps input order"
+        seen += idx
+    assert sorted(seen) == list(range(len(source)))
+    print("pyarrow agrees on", len(source), "rows")
+
+
+def check_schema(binary, work):
+    """Manifests of several kinds validate against schemas/manifest.schema.json."""
+    with open(os.path.join(ROOT, "schemas", "manifest.schema.json")) as fh:
+        schema = json.load(fh)
+    jsonschema.Draft202012Validator.check_schema(schema)
+    validator = jsonschema.Draft202012Validator(schema)
+    shutil.copy(os.path.join(FIXTURES, "water-quality.csv"), work)
+    runs = [
+        ["--stratify", "bloom_class", "--label", "bloom_class"],
+        ["--ratios", "0.8,0.2"],
+        ["--stratify", "ph,river", "--bins", "3", "--output-format", "jsonl"],
+    ]
+    for i, extra in enumerate(runs):
+        cleave(binary, "split", "water-quality.csv", "--out", f"o{i}", *extra, cwd=work)
+        m = manifest(os.path.join(work, f"o{i}"))
+        errors = sorted(validator.iter_errors(m), key=str)
+        assert not errors, [e.message for e in errors]
+    # And the schema is not vacuous: a broken manifest fails it.
+    m["partitions"][0]["rows"] = -1
+    assert list(validator.iter_errors(m)), "a negative row count must fail the schema"
+    print("manifests validate")
+
+
+if __name__ == "__main__":
+    check, binary, work = sys.argv[1], sys.argv[2], sys.argv[3]
+    globals()[f"check_{check}" if check != "make_vectors" else check](binary, work)
