@@ -473,3 +473,57 @@ pub fn assign(strata: &Strata, ratios: &Ratios, seed: u64) -> Plan {
     }
     Plan { partition, counts }
 }
+
+#[cfg(test)]
+mod tests {
+    use proptest::prelude::*;
+
+    use super::*;
+
+    fn strata_of(sizes: &[u64], order_seed: u64) -> Strata {
+        // Rows of the strata interleaved in a seeded order, as in a real file.
+        let mut row_stratum: Vec<u32> =
+            sizes.iter().enumerate().flat_map(|(s, &n)| std::iter::repeat_n(s as u32, n as usize)).collect();
+        SplitRng::new(order_seed).shuffle(&mut row_stratum);
+        Strata {
+            row_stratum,
+            labels: (0..sizes.len()).map(|s| format!("s{s}")).collect(),
+            sizes: sizes.to_vec(),
+            columns: vec![],
+        }
+    }
+
+    proptest! {
+        #[test]
+        fn every_row_once_and_every_stratum_within_one_row(
+            sizes in proptest::collection::vec(0u64..200, 1..8),
+            shares in prop_oneof![Just("70,15,15"), Just("80,20"), Just("0.5,0.25,0.25"), Just("33.3,33.3,33.4"), Just("1,1,98")],
+            seed in any::<u64>(),
+        ) {
+            let ratios = Ratios::parse(shares).unwrap();
+            let strata = strata_of(&sizes, seed ^ 1);
+            let plan = assign(&strata, &ratios, seed);
+            prop_assert_eq!(plan.partition.len() as u64, sizes.iter().sum::<u64>());
+            for (s, &n) in sizes.iter().enumerate() {
+                let mut got = vec![0u64; ratios.partitions().len()];
+                for (row, &st) in strata.row_stratum.iter().enumerate() {
+                    if st as usize == s {
+                        got[plan.partition[row] as usize] += 1;
+                    }
+                }
+                prop_assert_eq!(&got, &plan.counts[s]);
+                for (p, &c) in got.iter().enumerate() {
+                    let exact = n as f64 * ratios.share(p);
+                    prop_assert!((c as f64 - exact).abs() < 1.0, "stratum {} partition {}: {} vs {}", s, p, c, exact);
+                }
+            }
+        }
+
+        #[test]
+        fn same_seed_same_plan(sizes in proptest::collection::vec(1u64..100, 1..5), seed in any::<u64>()) {
+            let ratios = Ratios::parse("70,15,15").unwrap();
+            let strata = strata_of(&sizes, 3);
+            prop_assert_eq!(assign(&strata, &ratios, seed).partition, assign(&strata, &ratios, seed).partition);
+        }
+    }
+}
