@@ -89,7 +89,7 @@ fn batch(draw: &mut Draw, first: u64, n: usize, stations: u64) -> RecordBatch {
     let mut phosphate = Float64Builder::with_capacity(n);
     let mut chlorophyll = Float64Builder::with_capacity(n);
     let mut note = StringBuilder::new();
-    // 2022-01-01T00:00:00Z; samples every 3 hours in round-robin over stations.
+    // 2022-01-01T00:00:00Z; each station sampled once a day, in the morning.
     let start = 1_640_995_200i64;
     for i in 0..n as u64 {
         let row = first + i;
@@ -97,9 +97,9 @@ fn batch(draw: &mut Draw, first: u64, n: usize, stations: u64) -> RecordBatch {
         let river_ix = (s % RIVERS.len() as u64) as usize;
         station.append_value(format!("{}-{:03}", &RIVERS[river_ix][..3].to_uppercase(), s));
         river.append_value(RIVERS[river_ix]);
-        let t = start + (row / stations) as i64 * 3 * 3600 + draw.below(1800) as i64;
+        let t = start + (row / stations) as i64 * 86_400 + 6 * 3600 + draw.below(4 * 3600) as i64;
         time.append_value(t * 1_000_000);
-        let day = ((row / stations) as f64 * 3.0 / 24.0) % 365.0;
+        let day = (row / stations) as f64 % 365.0;
         let season = (day / 365.0 * std::f64::consts::TAU - 1.9).sin();
         let w = round(draw.normal(12.0 + 8.0 * season, 2.0), 2);
         let p = round(draw.normal(7.4, 0.3), 2);

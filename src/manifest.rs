@@ -45,6 +45,15 @@ pub struct Manifest {
     /// The strata, when stratified.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub strata: Option<StrataRecord>,
+    /// The groups, when grouped.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub groups: Option<GroupRecord>,
+    /// The time order, when time-ordered.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub order: Option<OrderRecord>,
+    /// The folds, when asked for.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub folds: Option<FoldRecord>,
     /// One entry per partition, in order train, validation, test.
     pub partitions: Vec<PartitionRecord>,
     /// The seal over the test partition.
@@ -109,6 +118,21 @@ pub struct SplitOptionsRecord {
     pub key: Vec<String>,
     /// Label columns.
     pub label: Vec<String>,
+    /// Group columns.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub group: Vec<String>,
+    /// The order column.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub order_by: Option<String>,
+    /// The gap as given.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub gap: Option<String>,
+    /// Stable (hash-based) assignment.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub stable: bool,
+    /// `--folds` as given.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub folds: Option<String>,
     /// Format of the partition files.
     pub output_format: Format,
 }
@@ -177,6 +201,95 @@ pub struct PartitionRecord {
     /// Rows per stratum (stratified splits).
     #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
     pub strata: BTreeMap<String, u64>,
+    /// Distinct groups (grouped splits).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub groups: Option<u64>,
+    /// Earliest and latest time (time-ordered splits).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub time: Option<TimeRange>,
+    /// Rows of this partition left out by the gap.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub dropped_by_gap: Option<u64>,
+    /// Rows of this partition's groups left out for falling at or after a
+    /// later partition's start (time-ordered grouped splits).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub dropped_by_group_rule: Option<u64>,
+    /// Rows per fold (development partitions, with folds other than leave-one-out).
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub folds: BTreeMap<u32, u64>,
+}
+
+/// Earliest and latest time of a partition, as text.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct TimeRange {
+    /// Earliest.
+    pub first: String,
+    /// Latest.
+    pub last: String,
+}
+
+/// The time order of a time-ordered split.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct OrderRecord {
+    /// The order column.
+    pub column: String,
+    /// What it holds.
+    pub kind: crate::split::TimeKind,
+    /// The gap in the column's units (microseconds for times and dates).
+    pub gap: i64,
+    /// Start time of each partition, in partition order.
+    pub starts: Vec<String>,
+    /// The test period's start as a number in the column's units
+    /// (microseconds since the epoch for times and dates): what `check`
+    /// compares against.
+    pub test_start: i64,
+}
+
+/// The groups of a grouped split.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct GroupRecord {
+    /// Group columns.
+    pub columns: Vec<String>,
+    /// Distinct groups in the input.
+    pub count: u64,
+    /// Per stratum, the largest gap between a partition's share of that
+    /// stratum and the asked share, in percentage points (grouped and
+    /// stratified splits).
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub largest_deviation: BTreeMap<String, String>,
+}
+
+/// The cross-validation folds.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct FoldRecord {
+    /// How they were made.
+    pub kind: crate::split::FoldKind,
+    /// Number of folds.
+    pub k: u32,
+    /// The column holding each development row's fold.
+    pub column: String,
+    /// Rolling origin: the blocks, 0..k, each with its rows and time range.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub blocks: Vec<BlockRecord>,
+    /// Stratified folds: rows per fold of each stratum.
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub strata: BTreeMap<String, Vec<u64>>,
+}
+
+/// One rolling-origin block.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct BlockRecord {
+    /// Block number (the fold column's value).
+    pub block: u32,
+    /// Rows in the block.
+    pub rows: u64,
+    /// Earliest and latest time.
+    pub time: TimeRange,
 }
 
 /// The seal over the test partition.
@@ -201,6 +314,8 @@ pub enum SealKind {
     Features,
     /// Features after normalisation.
     Loose,
+    /// One digest per distinct group key of the test partition.
+    Groups,
 }
 
 impl SealKind {
@@ -210,6 +325,7 @@ impl SealKind {
             SealKind::Rows => "rows",
             SealKind::Features => "features",
             SealKind::Loose => "loose",
+            SealKind::Groups => "groups",
         }
     }
 }

@@ -9,7 +9,12 @@
 
 use std::path::Path;
 
-use crate::digest::{content_digest, DigestSpec, RowDigests};
+use std::collections::BTreeMap;
+
+use arrow_array::cast::AsArray;
+use arrow_array::Array;
+
+use crate::digest::{content_digest, DigestSpec, GroupSpec, RowDigests};
 use crate::error::Result;
 use crate::io::{self, Table, TypeHints};
 use crate::manifest::{self, SealKind};
@@ -79,7 +84,8 @@ pub fn verify(path: &Path, pin: Option<&str>) -> Result<VerifyReport> {
     }
     let mut files_checked = 0;
     let mut rows_checked = 0;
-    let mut test_digests: Option<Vec<(RowDigests, u64)>> = None;
+    let mut test_digests: Option<(Vec<(RowDigests, u64)>, Vec<crate::seal::SealRecord>)> = None;
+    let group_spec = (!m.options.group.is_empty()).then(|| GroupSpec::new(&m.options.group, None));
     for part in &m.partitions {
         let file = loaded.file(&part.file);
         files_checked += 1;
@@ -100,9 +106,13 @@ pub fn verify(path: &Path, pin: Option<&str>) -> Result<VerifyReport> {
             continue;
         }
         let is_test = part.name == Partition::Test;
-        match digest_partition(&file, part.format, &hints, &spec, is_test) {
-            Ok((mut rows, all)) => {
+        let fold_column = m.folds.as_ref().filter(|_| !is_test).map(|f| f.column.as_str());
+        match digest_partition(&file, part.format, &hints, &spec, group_spec.as_ref(), fold_column, is_test) {
+            Ok(Content { mut rows, all, groups, folds }) => {
                 rows_checked += rows.len() as u64;
+                if fold_column.is_some() && !part.folds.is_empty() && folds != part.folds {
+                    problem(&part.file, format!("its fold column counts {folds:?} rows per fold, the seal says {:?}", part.folds));
+                }
                 if rows.len() as u64 != part.rows {
                     problem(&part.file, format!("has {} rows, the seal says {}", rows.len(), part.rows));
                 }
@@ -113,7 +123,7 @@ pub fn verify(path: &Path, pin: Option<&str>) -> Result<VerifyReport> {
                     // Only a test partition that matches its seal is a
                     // reference for the seal files; a changed one is
                     // reported above, not blamed on the seal.
-                    test_digests = Some(all);
+                    test_digests = Some((all, groups));
                 }
             }
             Err(e) => problem(&part.file, format!("cannot be read: {e}")),
@@ -142,8 +152,9 @@ pub fn verify(path: &Path, pin: Option<&str>) -> Result<VerifyReport> {
                 if records.len() as u64 != sf.records {
                     problem(&sf.file, format!("holds {} records, the seal says {}", records.len(), sf.records));
                 }
-                if let Some(test) = &test_digests {
-                    let mut expected = seal_records(test, sf.kind);
+                if let Some((test, groups)) = &test_digests {
+                    let mut expected =
+                        if sf.kind == SealKind::Groups { groups.clone() } else { seal_records(test, sf.kind) };
                     expected.sort_unstable();
                     if expected != records {
                         problem(&sf.file, format!("its {} digests do not match the test partition's rows", sf.kind.name()));
@@ -160,34 +171,68 @@ pub fn verify(path: &Path, pin: Option<&str>) -> Result<VerifyReport> {
     Ok(VerifyReport { manifest_checksum: loaded.recorded.clone(), problems, files_checked, rows_checked })
 }
 
-/// Row digests of every row of a partition file, and for the test partition
-/// all three digests with their row numbers.
-type Digested = (Vec<[u8; 16]>, Vec<(RowDigests, u64)>);
+/// What re-reading a partition yields.
+struct Content {
+    /// Row digest of every row.
+    rows: Vec<[u8; 16]>,
+    /// Test partition: all three digests of every row with its row number.
+    all: Vec<(RowDigests, u64)>,
+    /// Test partition with groups: each group's digest and first row.
+    groups: Vec<crate::seal::SealRecord>,
+    /// Rows per fold, when the partition has a fold column.
+    folds: BTreeMap<u32, u64>,
+}
 
 fn digest_partition(
     path: &Path,
     format: io::Format,
     hints: &TypeHints,
     spec: &DigestSpec,
-    all_kinds: bool,
-) -> Result<Digested> {
+    group: Option<&GroupSpec>,
+    fold_column: Option<&str>,
+    is_test: bool,
+) -> Result<Content> {
     let table = Table::open(path, format, hints)?;
     spec.bind(path, &table.schema())?;
-    let mut batches = table.batches(Some(&spec.columns()), false)?;
-    let mut rows = Vec::new();
-    let mut all = Vec::new();
+    if let Some(f) = fold_column {
+        table.column_index(f)?;
+    }
+    let mut content = Content { rows: Vec::new(), all: Vec::new(), groups: Vec::new(), folds: BTreeMap::new() };
+    let mut batches = table.batches(None, false)?;
     let mut buf = Vec::new();
+    let mut group_first: BTreeMap<[u8; 16], u64> = BTreeMap::new();
+    let mut group_digests = Vec::new();
     while let Some(batch) = batches.next_batch()? {
         let bound = spec.bind(path, &batch.data.schema())?;
-        bound.row_digests(&batch.data, &mut rows)?;
-        if all_kinds {
+        bound.row_digests(&batch.data, &mut content.rows)?;
+        if is_test {
             let idx: Vec<usize> = (0..batch.data.num_rows()).collect();
             buf.clear();
             bound.all_digests(&batch.data, &idx, &mut buf)?;
             for (i, d) in buf.drain(..).enumerate() {
-                all.push((d, batch.first_row + i as u64));
+                content.all.push((d, batch.first_row + i as u64));
+            }
+            if let Some(g) = group {
+                group_digests.clear();
+                g.digests(path, &batch.data, &mut group_digests)?;
+                for (i, d) in group_digests.iter().enumerate() {
+                    group_first.entry(*d).or_insert(batch.first_row + i as u64);
+                }
+            }
+        }
+        if let Some(f) = fold_column {
+            let col = batch.data.column_by_name(f).expect("checked above");
+            let ints = arrow_cast::cast(col, &arrow_schema::DataType::Int64)
+                .map_err(|e| crate::Error::malformed(path, format!("fold column `{f}`: {e}")))?;
+            let ints = ints.as_primitive::<arrow_array::types::Int64Type>();
+            for i in 0..ints.len() {
+                if ints.is_null(i) || ints.value(i) < 0 || ints.value(i) > u32::MAX as i64 {
+                    return Err(batch.error_at(path, i, f, "is not a fold number"));
+                }
+                *content.folds.entry(ints.value(i) as u32).or_insert(0) += 1;
             }
         }
     }
-    Ok((rows, all))
+    content.groups = group_first.into_iter().collect();
+    Ok(content)
 }

@@ -7,7 +7,7 @@ use serde_json::json;
 
 use crate::cli::{creation_time, output, Outcome};
 use crate::io::Format;
-use crate::split::{self, Ratios, SplitConfig};
+use crate::split::{self, FoldCount, Ratios, SplitConfig};
 
 fn parse_format(s: &str) -> Result<Format, String> {
     Format::parse(s).ok_or_else(|| format!("unknown format `{s}` (csv, parquet, arrow, jsonl)"))
@@ -39,6 +39,24 @@ pub struct Args {
     /// Target column(s): digested last, so features can be digested without them.
     #[arg(long, value_delimiter = ',', value_name = "COL")]
     label: Vec<String>,
+    /// Rows with equal values here never straddle two partitions (comma-separated columns).
+    #[arg(long, value_delimiter = ',', value_name = "COL")]
+    group: Vec<String>,
+    /// Time-ordered: train rows before validation rows before test rows (timestamps, dates or integers).
+    #[arg(long, value_name = "COL")]
+    order_by: Option<String>,
+    /// With --order-by: leave out rows closer than this to the next partition's start (7d, 36h, 90m, 45s; a number for integers).
+    #[arg(long, value_name = "DURATION")]
+    gap: Option<String>,
+    /// Read each row's (or group's) partition off a keyed hash, so it never moves when rows are added.
+    #[arg(long)]
+    stable: bool,
+    /// Cross-validation folds over the development rows: K (2 or more) or `loo`.
+    #[arg(long, value_name = "K")]
+    folds: Option<String>,
+    /// Name of the fold column added to the development partitions.
+    #[arg(long, default_value = "fold", value_name = "NAME")]
+    fold_column: String,
     /// Input format when the extension does not say.
     #[arg(long, value_parser = parse_format)]
     format: Option<Format>,
@@ -55,6 +73,7 @@ pub struct Args {
 
 pub fn run(args: Args) -> anyhow::Result<Outcome> {
     let ratios = Ratios::parse(&args.ratios)?;
+    let folds = args.folds.as_deref().map(|f| FoldCount::parse(f).map(|c| (c, f.to_string()))).transpose()?;
     let cfg = SplitConfig {
         input: args.input.clone(),
         format: args.format,
@@ -67,6 +86,12 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         bins: args.bins,
         key: args.key,
         label: args.label,
+        group: args.group,
+        order_by: args.order_by,
+        gap: args.gap,
+        stable: args.stable,
+        folds,
+        fold_column: args.fold_column,
         created: creation_time()?,
     };
     let outcome = split::run(&cfg).with_context(|| format!("cannot split `{}`", args.input.display()))?;
@@ -86,7 +111,8 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
             "manifest_checksum": outcome.manifest_checksum,
             "rows": m.source.rows,
             "partitions": partitions,
-            "dropped_by_gap": 0,
+            "dropped_by_gap": outcome.dropped_by_gap,
+            "dropped_by_group_rule": outcome.dropped_by_group,
             "warnings": outcome.warnings,
         }))?;
         return Ok(Outcome::Ok);
@@ -108,6 +134,20 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
     }
     if let Some(strata) = &m.strata {
         text.push_str(&format!("  stratified by {} ({} strata)\n", m.options.stratify.join(", "), strata.count));
+    }
+    if let Some(g) = &m.groups {
+        text.push_str(&format!("  grouped by {} ({} groups)\n", g.columns.join(", "), g.count));
+    }
+    if let Some(o) = &m.order {
+        text.push_str(&format!(
+            "  ordered by {}; partitions start at {}; {} row(s) left out by the gap\n",
+            o.column,
+            o.starts.join(", "),
+            outcome.dropped_by_gap
+        ));
+    }
+    if let Some(f) = &m.folds {
+        text.push_str(&format!("  {} folds ({}) in column `{}` of the development partitions\n", f.k, f.kind.name(), f.column));
     }
     text.push_str(&format!("sealed the test partition: {}\n", crate::manifest::FILE_NAME));
     text.push_str(&format!("seal identity (manifest checksum): {}\n", outcome.manifest_checksum));

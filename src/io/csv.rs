@@ -470,8 +470,9 @@ impl CsvReader {
         out
     }
 
-    /// Next batch and, when asked for at open, the raw bytes of its records.
-    pub fn next_batch(&mut self) -> Result<Option<(RecordBatch, Option<RawRows>)>> {
+    /// Next batch, the raw bytes of its records when asked for at open, and
+    /// each record's file line.
+    pub fn next_batch(&mut self) -> Result<Option<(RecordBatch, Option<RawRows>, Vec<u64>)>> {
         if self.done {
             return Ok(None);
         }
@@ -479,6 +480,7 @@ impl CsvReader {
         let mut builders: Vec<ColumnBuilder> =
             self.columns.iter().map(|&i| ColumnBuilder::new(self.types[i], self.batch_rows)).collect();
         let mut raw_ends = Vec::new();
+        let mut lines = Vec::with_capacity(self.batch_rows.min(1 << 16));
         let mut rows = 0usize;
         while rows < self.batch_rows {
             if !self.tok.next_record(&mut self.rec)? {
@@ -499,6 +501,7 @@ impl CsvReader {
             if let Some(raw) = self.tok.raw.as_ref() {
                 raw_ends.push(raw.len());
             }
+            lines.push(self.rec.line);
             rows += 1;
         }
         if rows == 0 {
@@ -520,7 +523,7 @@ impl CsvReader {
             }
             RawRows { bytes, ends: raw_ends }
         });
-        Ok(Some((batch, raw)))
+        Ok(Some((batch, raw, lines)))
     }
 }
 

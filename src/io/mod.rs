@@ -495,6 +495,23 @@ pub struct Batch {
     pub raw: Option<RawRows>,
     /// 1-based number of the batch's first data row in the file.
     pub first_row: u64,
+    /// CSV: the file line of each record (the header is line 1).
+    pub lines: Option<Vec<u64>>,
+}
+
+impl Batch {
+    /// An error about row `i` of this batch of `path`: names the file line
+    /// for CSV, the 1-based data row otherwise.
+    pub fn error_at(&self, path: &Path, i: usize, column: &str, what: impl Into<String>) -> Error {
+        let line = self.lines.as_ref().map(|l| l[i]);
+        Error::Malformed {
+            path: path.to_path_buf(),
+            line,
+            row: if line.is_none() { Some(self.first_row + i as u64) } else { None },
+            column: Some(column.to_string()),
+            what: what.into(),
+        }
+    }
 }
 
 /// A stream of batches from one file.
@@ -513,21 +530,21 @@ impl Batches {
     pub fn next_batch(&mut self) -> Result<Option<Batch>> {
         let (path, format) = (self.path.clone(), self.format);
         let next = guarded(&path, format, || match &mut self.inner {
-            BatchSource::Csv(r) => Ok(r.next_batch()?),
-            BatchSource::Parquet(r) => r.next().transpose().map(|b| b.map(|b| (b, None))).map_err(|e| decode_err(&path, format, e)),
-            BatchSource::Ipc(r) => r.next().transpose().map(|b| b.map(|b| (b, None))).map_err(|e| decode_err(&path, format, e)),
+            BatchSource::Csv(r) => Ok(r.next_batch()?.map(|(b, raw, lines)| (b, raw, Some(lines)))),
+            BatchSource::Parquet(r) => r.next().transpose().map(|b| b.map(|b| (b, None, None))).map_err(|e| decode_err(&path, format, e)),
+            BatchSource::Ipc(r) => r.next().transpose().map(|b| b.map(|b| (b, None, None))).map_err(|e| decode_err(&path, format, e)),
             BatchSource::Json { reader, projection } => {
                 let batch = reader.next().transpose().map_err(|e| decode_err(&path, format, e))?;
                 Ok(match (batch, projection) {
-                    (Some(b), Some(p)) => Some((b.project(p).map_err(|e| decode_err(&path, format, e))?, None)),
-                    (b, _) => b.map(|b| (b, None)),
+                    (Some(b), Some(p)) => Some((b.project(p).map_err(|e| decode_err(&path, format, e))?, None, None)),
+                    (b, _) => b.map(|b| (b, None, None)),
                 })
             }
         })?;
-        Ok(next.map(|(data, raw)| {
+        Ok(next.map(|(data, raw, lines)| {
             let first_row = self.rows + 1;
             self.rows += data.num_rows() as u64;
-            Batch { data, raw, first_row }
+            Batch { data, raw, first_row, lines }
         }))
     }
 

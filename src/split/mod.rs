@@ -1,37 +1,46 @@
 //! Splitting a table into train / validation / test partitions and sealing
 //! the test partition.
 //!
-//! Two passes over the input. The first reads only the stratify columns and
-//! decides every row's partition: strata are shared out by largest remainder
-//! ([`Ratios::allocate`]) and each stratum's rows are shuffled with the seeded
-//! [`SplitRng`]. The second streams every batch once, routes rows to the
-//! partition writers in input order, and digests them. What stays in memory is
-//! per row a stratum id, a partition and a 16-byte digest, never the table.
+//! Two passes over the input. The first reads only the columns the
+//! assignment needs (stratify, group and order columns; the key columns for
+//! `--stable` without groups) and decides every row's partition and fold.
+//! The second streams every batch once, routes rows to the partition writers
+//! in input order, and digests them. What stays in memory is per row a few
+//! ids, a partition and a 16-byte digest, never the table.
 //!
 //! Everything is written into a staging folder beside the target and renamed
 //! into place at the end, so the target is either absent, the old folder, or
 //! the complete new one.
 
+mod folds;
 mod ratio;
 mod rng;
 mod strata;
+mod structure;
 
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
+use std::sync::Arc;
 
-use arrow_array::{ArrayRef, UInt32Array};
+use arrow_array::{ArrayRef, Int64Array, RecordBatch, UInt32Array};
+use arrow_schema::{DataType, Field, Schema, SchemaRef};
 
+pub use self::folds::{FoldCount, FoldKind, NO_FOLD};
 pub use self::ratio::{Partition, Ratios};
 pub use self::rng::SplitRng;
 pub use self::strata::{Strata, StrataBuilder, StratumColumn};
-use crate::digest::{self, content_digest, DigestSpec, RowDigest, RowDigests};
+pub use self::structure::{format_time, parse_gap, time_values, Groups, TimeKind};
+use crate::digest::{self, content_digest, DigestSpec, GroupSpec, RowDigest, RowDigests};
 use crate::error::{Error, Result};
 use crate::io::{self, ColumnType, Format, PartitionWriter, Table, TypeHints};
 use crate::manifest::{
-    self, ColumnRecord, DigestRecord, Manifest, PartitionRecord, SealFile, SealKind, SealRecord, ShortStratum, Source,
-    SplitOptionsRecord, StrataRecord, Tool,
+    self, BlockRecord, ColumnRecord, DigestRecord, FoldRecord, GroupRecord, Manifest, OrderRecord, PartitionRecord,
+    SealFile, SealKind, SealRecord, ShortStratum, Source, SplitOptionsRecord, StrataRecord, TimeRange, Tool,
 };
 use crate::seal;
+
+/// The partition code of a row left out (by the gap or the group rule).
+pub const DROPPED: u8 = u8::MAX;
 
 /// Everything a split needs, checked by the caller's option parsing.
 #[derive(Debug, Clone)]
@@ -58,6 +67,18 @@ pub struct SplitConfig {
     pub key: Option<Vec<String>>,
     /// Label columns.
     pub label: Vec<String>,
+    /// Group columns.
+    pub group: Vec<String>,
+    /// The order column.
+    pub order_by: Option<String>,
+    /// The gap, as given (`7d`, `36h`, or a number for integer order columns).
+    pub gap: Option<String>,
+    /// Stable, hash-based assignment.
+    pub stable: bool,
+    /// Cross-validation folds over the development rows.
+    pub folds: Option<(FoldCount, String)>,
+    /// Name of the fold column.
+    pub fold_column: String,
     /// The manifest's creation time, RFC 3339.
     pub created: String,
 }
@@ -71,6 +92,10 @@ pub struct SplitOutcome {
     pub manifest_checksum: String,
     /// Things the user should know (strata too small, ...).
     pub warnings: Vec<String>,
+    /// Rows left out by the gap.
+    pub dropped_by_gap: u64,
+    /// Rows left out by the group rule of time-ordered grouped splits.
+    pub dropped_by_group: u64,
 }
 
 /// Removes the staging folder unless the split got to the end.
@@ -128,15 +153,145 @@ fn resolve_columns(table: &Table, names: &[String]) -> Result<Vec<String>> {
     Ok(out)
 }
 
+/// Checks option combinations before any data is read.
+fn check_combinations(cfg: &SplitConfig) -> Result<()> {
+    let refuse = |why: &str| Err(Error::Options(why.to_string()));
+    if cfg.gap.is_some() && cfg.order_by.is_none() {
+        return refuse("--gap needs --order-by: a gap is a span of time before a partition's start");
+    }
+    if cfg.order_by.is_some() && !cfg.stratify.is_empty() {
+        return refuse("--stratify with --order-by cannot be honoured: time order alone decides the partitions");
+    }
+    if cfg.stable && !cfg.stratify.is_empty() {
+        return refuse("--stratify with --stable cannot be honoured: a stable split reads each row's partition off its own hash");
+    }
+    if cfg.stable && cfg.order_by.is_some() {
+        return refuse("--stable with --order-by cannot be honoured: time order, not a hash, decides the partitions");
+    }
+    if cfg.bins < 2 {
+        return Err(Error::Options(format!("--bins must be at least 2, got {}", cfg.bins)));
+    }
+    Ok(())
+}
+
+/// What the first pass learns about every row.
+struct RowFacts {
+    rows: u64,
+    strata: Strata,
+    groups: Option<Groups>,
+    times: Option<(Vec<i64>, TimeKind)>,
+    /// Row digests, for `--stable` without groups.
+    stable_keys: Option<Vec<RowDigest>>,
+}
+
+fn first_pass(
+    cfg: &SplitConfig,
+    table: &Table,
+    format: Format,
+    stratify: &[(String, ColumnType)],
+    group: &[String],
+    spec: &DigestSpec,
+) -> Result<RowFacts> {
+    let mut needed: Vec<String> = stratify.iter().map(|(n, _)| n.clone()).collect();
+    needed.extend(group.iter().cloned());
+    needed.extend(cfg.order_by.iter().cloned());
+    let stable_rows = cfg.stable && group.is_empty();
+    if stable_rows {
+        needed.extend(spec.columns());
+    }
+    if needed.is_empty() && format != Format::Csv {
+        needed.push(table.schema().field(0).name().clone());
+    }
+    let mut strata_builder = (!stratify.is_empty()).then(|| StrataBuilder::new(stratify, cfg.bins));
+    let group_spec = (!group.is_empty()).then(|| GroupSpec::new(group, None));
+    let mut groups = group_spec.as_ref().map(|_| Groups::new());
+    let mut group_seen = vec![false; group.len()];
+    let mut times: Option<(Vec<i64>, Option<TimeKind>)> = cfg.order_by.as_ref().map(|_| (Vec::new(), None));
+    let mut stable_keys = stable_rows.then(Vec::new);
+    let mut batches = table.batches(Some(&needed), false)?;
+    let mut digests = Vec::new();
+    while let Some(batch) = batches.next_batch()? {
+        if let Some(b) = strata_builder.as_mut() {
+            let arrays: Vec<ArrayRef> =
+                stratify.iter().map(|(s, _)| batch.data.column_by_name(s).expect("projected").clone()).collect();
+            b.push(&arrays)?;
+        }
+        if let (Some(spec), Some(groups)) = (&group_spec, groups.as_mut()) {
+            digests.clear();
+            spec.digests(&cfg.input, &batch.data, &mut digests)?;
+            groups.push(&digests);
+            for (seen, name) in group_seen.iter_mut().zip(group) {
+                let col = batch.data.column_by_name(name).expect("projected");
+                *seen |= !io::all_null(col.as_ref());
+            }
+        }
+        if let (Some(column), Some((values, kind))) = (&cfg.order_by, times.as_mut()) {
+            *kind = Some(time_values(&cfg.input, &batch, column, values)?);
+        }
+        if let Some(keys) = stable_keys.as_mut() {
+            spec.bind(&cfg.input, &batch.data.schema())?.row_digests(&batch.data, keys)?;
+        }
+    }
+    let rows = batches.rows();
+    if rows == 0 {
+        return Err(Error::malformed(&cfg.input, "has a header but no data rows"));
+    }
+    if rows > u32::MAX as u64 {
+        return Err(Error::malformed(&cfg.input, format!("has {rows} rows; cleave splits at most {} rows", u32::MAX)));
+    }
+    if let Some(i) = group_seen.iter().position(|s| !s) {
+        if group_seen.iter().all(|s| !s) {
+            return Err(Error::Options(format!(
+                "--group: `{}` is entirely null, so it names no groups",
+                group[i]
+            )));
+        }
+    }
+    let strata = match strata_builder {
+        Some(b) => b.finish(),
+        None => strata::single(rows),
+    };
+    let times = times.map(|(v, k)| (v, k.unwrap_or(TimeKind::Integer)));
+    Ok(RowFacts { rows, strata, groups, times, stable_keys })
+}
+
+/// Rows per partition of each stratum (left-out rows not counted).
+fn tally(strata: &Strata, partition: &[u8], k: usize) -> Vec<Vec<u64>> {
+    let mut counts = vec![vec![0u64; k]; strata.sizes.len()];
+    for (row, &p) in partition.iter().enumerate() {
+        if p != DROPPED {
+            counts[strata.row_stratum[row] as usize][p as usize] += 1;
+        }
+    }
+    counts
+}
+
+fn with_fold_column(schema: &SchemaRef, name: &str) -> SchemaRef {
+    let mut fields: Vec<Field> = schema.fields().iter().map(|f| f.as_ref().clone()).collect();
+    fields.push(Field::new(name, DataType::Int64, true));
+    Arc::new(Schema::new_with_metadata(fields, schema.metadata().clone()))
+}
+
+/// Appends `,value` to a raw CSV record, before its line break.
+fn append_csv_field(record: &[u8], value: &str, out: &mut Vec<u8>) {
+    let body = record.strip_suffix(b"\n").unwrap_or(record);
+    let (body, end): (&[u8], &[u8]) = match body.strip_suffix(b"\r") {
+        Some(b) => (b, b"\r\n"),
+        None => (body, b"\n"),
+    };
+    out.extend_from_slice(body);
+    out.push(b',');
+    crate::io::csv::write_field(out, value);
+    out.extend_from_slice(end);
+}
+
 /// Runs a split.
 ///
 /// # Errors
 /// Bad options, unreadable or malformed input, too few rows, and disk
 /// failures; nothing is left behind on error.
 pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
-    if cfg.bins < 2 {
-        return Err(Error::Options(format!("--bins must be at least 2, got {}", cfg.bins)));
-    }
+    check_combinations(cfg)?;
     check_output(cfg)?;
     let format = Format::resolve(&cfg.input, cfg.format)?;
     let output_format = cfg.output_format.unwrap_or(format);
@@ -145,6 +300,10 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
 
     let label = resolve_columns(&table, &cfg.label)?;
     let stratify = resolve_columns(&table, &cfg.stratify)?;
+    let group = resolve_columns(&table, &cfg.group)?;
+    if let Some(o) = &cfg.order_by {
+        table.column_index(o)?;
+    }
     let mut key = match &cfg.key {
         Some(k) => resolve_columns(&table, k)?,
         None => schema.fields().iter().map(|f| f.name().clone()).collect(),
@@ -155,45 +314,56 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         }
     }
     let spec = DigestSpec::new(&key, &label, None);
-    let bound = spec.bind(&cfg.input, &schema)?;
+    spec.bind(&cfg.input, &schema)?;
     if spec.features().is_empty() {
         return Err(Error::Options("the key has no columns besides the label; nothing would identify a row".into()));
+    }
+    if cfg.folds.is_some() && schema.index_of(&cfg.fold_column).is_ok() {
+        return Err(Error::Options(format!(
+            "the input already has a column `{}`; name the fold column otherwise with --fold-column",
+            cfg.fold_column
+        )));
     }
     let mut stratify_types = Vec::new();
     for s in &stratify {
         let f = schema.field_with_name(s).expect("resolved above");
         stratify_types.push((s.clone(), io::require_supported(&cfg.input, f)?));
     }
-
-    // Pass one: stratum of every row.
-    let strata = if stratify.is_empty() {
-        let first = vec![schema.field(0).name().clone()];
-        let projection: Vec<String> = if format == Format::Csv { Vec::new() } else { first };
-        let mut batches = table.batches(Some(&projection), false)?;
-        while batches.next_batch()?.is_some() {}
-        strata::single(batches.rows())
-    } else {
-        let mut builder = StrataBuilder::new(&stratify_types, cfg.bins);
-        let mut batches = table.batches(Some(&stratify), false)?;
-        while let Some(batch) = batches.next_batch()? {
-            let arrays: Vec<ArrayRef> =
-                stratify.iter().map(|s| batch.data.column_by_name(s).expect("projected").clone()).collect();
-            builder.push(&arrays)?;
-        }
-        builder.finish()
-    };
-    let rows = strata.row_stratum.len() as u64;
-    if rows == 0 {
-        return Err(Error::malformed(&cfg.input, "has a header but no data rows"));
-    }
-    if rows > u32::MAX as u64 {
-        return Err(Error::malformed(&cfg.input, format!("has {rows} rows; cleave splits at most {} rows", u32::MAX)));
+    for g in &group {
+        io::require_supported(&cfg.input, schema.field_with_name(g).expect("resolved above"))?;
     }
 
-    let plan = assign(&strata, &cfg.ratios, cfg.seed);
+    // Pass one: what decides every row's partition.
+    let facts = first_pass(cfg, &table, format, &stratify_types, &group, &spec)?;
+    let rows = facts.rows;
+    let strata = &facts.strata;
     let partitions = cfg.ratios.partitions().to_vec();
-    let totals: Vec<u64> =
-        (0..partitions.len()).map(|p| plan.counts.iter().map(|c| c[p]).sum::<u64>()).collect();
+    let k = partitions.len();
+    let gap = match (&cfg.gap, &facts.times) {
+        (Some(g), Some((_, kind))) => parse_gap(g, *kind)?,
+        _ => 0,
+    };
+    let mut time_plan = None;
+    let partition: Vec<u8> = if let Some((times, _)) = &facts.times {
+        let plan = structure::assign_time(times, facts.groups.as_ref(), &cfg.ratios, gap)?;
+        let p = plan.partition.clone();
+        time_plan = Some(plan);
+        p
+    } else if cfg.stable {
+        match &facts.groups {
+            Some(groups) => {
+                let per_group = structure::assign_stable(&groups.digests, &cfg.ratios, cfg.seed);
+                groups.row_group.iter().map(|&g| per_group[g as usize]).collect()
+            }
+            None => structure::assign_stable(facts.stable_keys.as_deref().expect("stable keys"), &cfg.ratios, cfg.seed),
+        }
+    } else if let Some(groups) = &facts.groups {
+        structure::assign_grouped(groups, strata, &cfg.ratios, cfg.seed)
+    } else {
+        assign(strata, &cfg.ratios, cfg.seed).partition
+    };
+    let counts = tally(strata, &partition, k);
+    let totals: Vec<u64> = (0..k).map(|p| counts.iter().map(|c| c[p]).sum::<u64>()).collect();
     if let Some(p) = totals.iter().position(|&t| t == 0) {
         return Err(Error::Options(format!(
             "too few rows: {rows} rows at --ratios {} leave the {} partition empty",
@@ -201,12 +371,21 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             partitions[p]
         )));
     }
+    let test_index = k - 1;
+    let folds = match &cfg.folds {
+        Some((count, _)) => {
+            let dev: Vec<bool> = partition.iter().map(|&p| p != DROPPED && (p as usize) < test_index).collect();
+            let times = facts.times.as_ref().map(|(t, _)| t.as_slice());
+            Some(folds::assign(&dev, *count, strata, facts.groups.as_ref(), times, cfg.seed)?)
+        }
+        None => None,
+    };
+
     let mut warnings = Vec::new();
     let mut short = Vec::new();
     if !stratify.is_empty() {
-        for (s, counts) in plan.counts.iter().enumerate() {
-            let missing: Vec<Partition> =
-                partitions.iter().zip(counts).filter(|(_, &c)| c == 0).map(|(p, _)| *p).collect();
+        for (s, c) in counts.iter().enumerate() {
+            let missing: Vec<Partition> = partitions.iter().zip(c).filter(|(_, &c)| c == 0).map(|(p, _)| *p).collect();
             if !missing.is_empty() {
                 warnings.push(format!(
                     "stratum `{}` has {} row(s), too few to reach every partition: none in {}",
@@ -223,57 +402,113 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let staging = Staging { path: sibling(&cfg.out, "staging"), done: false };
     std::fs::create_dir(&staging.path).map_err(|e| Error::io(&staging.path, "cannot create", e))?;
     let raw_csv = format == Format::Csv && output_format == Format::Csv;
-    let header = if raw_csv { Some(table.csv_header()?) } else { None };
-    let compression = if output_format == Format::Parquet && format == Format::Parquet {
-        io::parquet_compression(&cfg.input)
-    } else {
-        None
-    };
+    let fold_schema = with_fold_column(&schema, &cfg.fold_column);
     let mut writers = Vec::new();
-    for p in &partitions {
+    for (i, p) in partitions.iter().enumerate() {
         let file = format!("{}.{}", p.name(), output_format.extension());
-        let w = PartitionWriter::create(&staging.path.join(&file), output_format, &schema, header.as_deref(), compression)?;
+        let has_folds = folds.is_some() && i < test_index;
+        let header = if raw_csv {
+            let h = table.csv_header()?;
+            Some(if has_folds {
+                let mut out = Vec::new();
+                append_csv_field(&h, &cfg.fold_column, &mut out);
+                out
+            } else {
+                h
+            })
+        } else {
+            None
+        };
+        let compression = if output_format == Format::Parquet && format == Format::Parquet {
+            io::parquet_compression(&cfg.input)
+        } else {
+            None
+        };
+        let target_schema = if has_folds { &fold_schema } else { &schema };
+        let w = PartitionWriter::create(&staging.path.join(&file), output_format, target_schema, header.as_deref(), compression)?;
         writers.push((file, w));
     }
-    let test_index = partitions.len() - 1;
+    let group_spec = (!group.is_empty()).then(|| GroupSpec::new(&group, None));
     let mut digests: Vec<Vec<RowDigest>> = totals.iter().map(|&t| Vec::with_capacity(t as usize)).collect();
     let mut test_seal: Vec<(RowDigests, u64)> = Vec::with_capacity(totals[test_index] as usize);
+    let mut test_groups: BTreeMap<RowDigest, u64> = BTreeMap::new();
+    let mut fold_counts: Vec<BTreeMap<u32, u64>> = vec![BTreeMap::new(); k];
+    let mut time_ranges: Vec<Option<(i64, i64)>> = vec![None; k];
     let mut batches = table.batches(None, raw_csv)?;
     let mut batch_digests = Vec::new();
     let mut test_digests = Vec::new();
+    let mut group_digests = Vec::new();
+    let mut line = Vec::new();
     while let Some(batch) = batches.next_batch()? {
         let n = batch.data.num_rows();
         let start = (batch.first_row - 1) as usize;
-        if start + n > plan.partition.len() {
+        if start + n > partition.len() {
             return Err(Error::malformed(&cfg.input, "changed while being read (more rows than in the first pass)"));
         }
-        let assigned = &plan.partition[start..start + n];
+        let assigned = &partition[start..start + n];
         batch_digests.clear();
-        bound.row_digests(&batch.data, &mut batch_digests)?;
-        let mut indices: Vec<Vec<u32>> = vec![Vec::new(); partitions.len()];
+        spec.bind(&cfg.input, &batch.data.schema())?.row_digests(&batch.data, &mut batch_digests)?;
+        let mut indices: Vec<Vec<u32>> = vec![Vec::new(); k];
         for (i, (&p, d)) in assigned.iter().zip(&batch_digests).enumerate() {
+            if p == DROPPED {
+                continue;
+            }
             indices[p as usize].push(i as u32);
             digests[p as usize].push(*d);
+            if let Some((times, _)) = &facts.times {
+                let t = times[start + i];
+                let r = time_ranges[p as usize].get_or_insert((t, t));
+                r.0 = r.0.min(t);
+                r.1 = r.1.max(t);
+            }
         }
         let test_rows: Vec<usize> = indices[test_index].iter().map(|&i| i as usize).collect();
         test_digests.clear();
-        bound.all_digests(&batch.data, &test_rows, &mut test_digests)?;
-        for d in test_digests.drain(..) {
+        spec.bind(&cfg.input, &batch.data.schema())?.all_digests(&batch.data, &test_rows, &mut test_digests)?;
+        if let Some(gs) = &group_spec {
+            group_digests.clear();
+            gs.digests(&cfg.input, &batch.data, &mut group_digests)?;
+        }
+        for (j, d) in test_digests.drain(..).enumerate() {
             let row = test_seal.len() as u64 + 1;
             test_seal.push((d, row));
+            if group_spec.is_some() {
+                test_groups.entry(group_digests[test_rows[j]]).or_insert(row);
+            }
         }
         for (p, (_, w)) in writers.iter_mut().enumerate() {
             if indices[p].is_empty() {
                 continue;
             }
+            let fold_of = |i: u32| folds.as_ref().filter(|_| p < test_index).map(|(f, _, _)| f[start + i as usize]);
+            for &i in &indices[p] {
+                if let Some(f) = fold_of(i) {
+                    *fold_counts[p].entry(f).or_insert(0) += 1;
+                }
+            }
             if let Some(raw) = &batch.raw {
                 for &i in &indices[p] {
-                    w.write_raw(raw.record(i as usize))?;
+                    match fold_of(i) {
+                        Some(f) => {
+                            line.clear();
+                            append_csv_field(raw.record(i as usize), &f.to_string(), &mut line);
+                            w.write_raw(&line)?;
+                        }
+                        None => w.write_raw(raw.record(i as usize))?,
+                    }
                 }
             } else {
+                let fold_values: Option<Vec<i64>> =
+                    fold_of(0).map(|_| indices[p].iter().map(|&i| fold_of(i).expect("dev row") as i64).collect());
                 let take = UInt32Array::from(std::mem::take(&mut indices[p]));
-                let part = arrow_select::take::take_record_batch(&batch.data, &take)
+                let mut part = arrow_select::take::take_record_batch(&batch.data, &take)
                     .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?;
+                if let Some(values) = fold_values {
+                    let mut columns = part.columns().to_vec();
+                    columns.push(Arc::new(Int64Array::from(values)));
+                    part = RecordBatch::try_new(fold_schema.clone(), columns)
+                        .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?;
+                }
                 w.write_batch(&part)?;
             }
         }
@@ -286,15 +521,30 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     }
 
     let source_summary = io::hash_file(&cfg.input)?;
+    let time_kind = facts.times.as_ref().map(|(_, kind)| *kind);
+    let mut groups_per_partition = vec![0u64; k];
+    if let Some(groups) = &facts.groups {
+        let mut seen = vec![[false; 3]; groups.len()];
+        for (row, &p) in partition.iter().enumerate() {
+            if p != DROPPED {
+                seen[groups.row_group[row] as usize][p as usize] = true;
+            }
+        }
+        for s in &seen {
+            for p in 0..k {
+                groups_per_partition[p] += s[p] as u64;
+            }
+        }
+    }
+    let loo = matches!(cfg.folds, Some((FoldCount::LeaveOneOut, _)));
     let mut records = Vec::new();
     for (p, ((file, w), mut d)) in writers.into_iter().zip(digests).enumerate() {
         let summary = w.finish()?;
-        let mut strata_counts = BTreeMap::new();
-        if !stratify.is_empty() {
-            for (s, counts) in plan.counts.iter().enumerate() {
-                strata_counts.insert(strata.labels[s].clone(), counts[p]);
-            }
-        }
+        let strata_counts: BTreeMap<String, u64> = if stratify.is_empty() {
+            BTreeMap::new()
+        } else {
+            counts.iter().enumerate().map(|(s, c)| (strata.labels[s].clone(), c[p])).collect()
+        };
         records.push(PartitionRecord {
             name: partitions[p],
             file,
@@ -304,10 +554,90 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             blake3: summary.blake3,
             content_digest: content_digest(&mut d),
             strata: strata_counts,
+            groups: facts.groups.as_ref().map(|_| groups_per_partition[p]),
+            time: time_ranges[p].map(|(a, b)| {
+                let kind = time_kind.expect("times");
+                TimeRange { first: format_time(a, kind), last: format_time(b, kind) }
+            }),
+            dropped_by_gap: time_plan.as_ref().map(|t| t.dropped_by_gap[p]),
+            dropped_by_group_rule: time_plan.as_ref().filter(|_| facts.groups.is_some()).map(|t| t.dropped_by_group[p]),
+            folds: if loo { BTreeMap::new() } else { std::mem::take(&mut fold_counts[p]) },
         });
     }
+    let dropped_by_gap: u64 = time_plan.as_ref().map_or(0, |t| t.dropped_by_gap.iter().sum());
+    let dropped_by_group: u64 = time_plan.as_ref().map_or(0, |t| t.dropped_by_group.iter().sum());
+    if dropped_by_group > 0 {
+        warnings.push(format!(
+            "{dropped_by_group} row(s) left out: their group belongs to an earlier partition but they fall at or after a later partition's start"
+        ));
+    }
 
-    let seal_files = write_seal(&staging.path, &test_seal)?;
+    let test_group_records: Vec<seal::SealRecord> = test_groups.into_iter().collect();
+    let seal_files =
+        write_seal(&staging.path, &test_seal, group_spec.as_ref().map(|_| test_group_records.as_slice()))?;
+    let largest_deviation: BTreeMap<String, String> = if facts.groups.is_some() && !stratify.is_empty() {
+        counts
+            .iter()
+            .enumerate()
+            .map(|(s, c)| {
+                let n = strata.sizes[s] as f64;
+                let dev = (0..k)
+                    .map(|p| (c[p] as f64 / n - cfg.ratios.share(p)).abs() * 100.0)
+                    .fold(0.0f64, f64::max);
+                (strata.labels[s].clone(), format!("{dev:.2}"))
+            })
+            .collect()
+    } else {
+        BTreeMap::new()
+    };
+    let fold_record = folds.as_ref().map(|(fold, kind, kk)| {
+        let mut blocks = Vec::new();
+        if *kind == FoldKind::RollingOrigin {
+            let (times, tk) = facts.times.as_ref().expect("rolling origin has times");
+            let mut ranges: Vec<Option<(i64, i64, u64)>> = vec![None; *kk as usize + 1];
+            for (row, &f) in fold.iter().enumerate() {
+                if f != NO_FOLD {
+                    let t = times[row];
+                    let r = ranges[f as usize].get_or_insert((t, t, 0));
+                    r.0 = r.0.min(t);
+                    r.1 = r.1.max(t);
+                    r.2 += 1;
+                }
+            }
+            for (b, r) in ranges.iter().enumerate() {
+                let (a, z, n) = r.expect("every block has rows");
+                blocks.push(BlockRecord {
+                    block: b as u32,
+                    rows: n,
+                    time: TimeRange { first: format_time(a, *tk), last: format_time(z, *tk) },
+                });
+            }
+        }
+        let mut per_stratum = BTreeMap::new();
+        if !stratify.is_empty() && *kind != FoldKind::LeaveOneOut {
+            let width = if *kind == FoldKind::RollingOrigin { *kk as usize + 1 } else { *kk as usize };
+            let mut c = vec![vec![0u64; width]; strata.sizes.len()];
+            for (row, &f) in fold.iter().enumerate() {
+                if f != NO_FOLD {
+                    c[strata.row_stratum[row] as usize][f as usize] += 1;
+                }
+            }
+            for (s, v) in c.into_iter().enumerate() {
+                per_stratum.insert(strata.labels[s].clone(), v);
+            }
+        }
+        FoldRecord { kind: *kind, k: *kk, column: cfg.fold_column.clone(), blocks, strata: per_stratum }
+    });
+    let order_record = match (&cfg.order_by, &time_plan, time_kind) {
+        (Some(column), Some(plan), Some(kind)) => Some(OrderRecord {
+            column: column.clone(),
+            kind,
+            gap,
+            starts: plan.starts.iter().map(|&s| format_time(s, kind)).collect(),
+            test_start: plan.starts[test_index],
+        }),
+        _ => None,
+    };
     let manifest = Manifest {
         format_version: manifest::FORMAT_VERSION,
         tool: Tool { name: "cleave".into(), version: env!("CARGO_PKG_VERSION").into() },
@@ -331,6 +661,11 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             bins: cfg.bins as u32,
             key: key.clone(),
             label: label.clone(),
+            group: group.clone(),
+            order_by: cfg.order_by.clone(),
+            gap: cfg.gap.clone(),
+            stable: cfg.stable,
+            folds: cfg.folds.as_ref().map(|(_, text)| text.clone()),
             output_format,
         },
         digest: DigestRecord {
@@ -346,6 +681,13 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             count: strata.labels.len() as u64,
             short,
         }),
+        groups: facts.groups.as_ref().map(|g| GroupRecord {
+            columns: group.clone(),
+            count: g.len() as u64,
+            largest_deviation,
+        }),
+        order: order_record,
+        folds: fold_record,
         partitions: records,
         seal: SealRecord { partition: Partition::Test, keyed: false, files: seal_files },
         checksum: None,
@@ -357,17 +699,25 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     commit(staging, &cfg.out)?;
     let mut manifest = manifest;
     manifest.checksum = Some(checksum.clone());
-    Ok(SplitOutcome { manifest, manifest_checksum: checksum, warnings })
+    Ok(SplitOutcome { manifest, manifest_checksum: checksum, warnings, dropped_by_gap, dropped_by_group })
 }
 
-/// Writes the three seal files of the test partition.
+/// Writes the seal files of the test partition: rows, features and loose
+/// digests, and with groups one record per test group.
 ///
 /// # Errors
 /// Disk failures.
-pub fn write_seal(dir: &Path, test: &[(RowDigests, u64)]) -> Result<Vec<SealFile>> {
+pub fn write_seal(dir: &Path, test: &[(RowDigests, u64)], groups: Option<&[seal::SealRecord]>) -> Result<Vec<SealFile>> {
     let mut files = Vec::new();
-    for kind in [SealKind::Rows, SealKind::Features, SealKind::Loose] {
-        let mut recs = seal_records(test, kind);
+    let mut kinds = vec![SealKind::Rows, SealKind::Features, SealKind::Loose];
+    if groups.is_some() {
+        kinds.push(SealKind::Groups);
+    }
+    for kind in kinds {
+        let mut recs = match (kind, groups) {
+            (SealKind::Groups, Some(g)) => g.to_vec(),
+            _ => seal_records(test, kind),
+        };
         let bytes = seal::encode(&mut recs);
         let file = format!("seal.{}.bin", kind.name());
         let summary = io::write_small(&dir.join(&file), &bytes)?;
@@ -383,14 +733,14 @@ pub fn write_seal(dir: &Path, test: &[(RowDigests, u64)]) -> Result<Vec<SealFile
     Ok(files)
 }
 
-/// The records of one seal kind.
+/// The records of one row-level seal kind.
 pub fn seal_records(test: &[(RowDigests, u64)], kind: SealKind) -> Vec<seal::SealRecord> {
     test.iter()
         .map(|(d, row)| {
             let digest = match kind {
                 SealKind::Rows => d.row,
                 SealKind::Features => d.features,
-                SealKind::Loose => d.loose,
+                SealKind::Loose | SealKind::Groups => d.loose,
             };
             (digest, *row)
         })
@@ -427,7 +777,7 @@ fn commit(mut staging: Staging, out: &Path) -> Result<()> {
     Ok(())
 }
 
-/// Every row's partition, and the counts per stratum.
+/// Every row's partition.
 pub struct Plan {
     /// Partition index (into the ratios' partitions) of every row.
     pub partition: Vec<u8>,

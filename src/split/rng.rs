@@ -14,7 +14,13 @@ impl SplitRng {
     /// A generator for `seed`: ChaCha20 keyed with
     /// `blake3::derive_key(SHUFFLE_CONTEXT, seed as 8 little-endian bytes)`.
     pub fn new(seed: u64) -> Self {
-        SplitRng(ChaCha20Rng::from_seed(blake3::derive_key(SHUFFLE_CONTEXT, &seed.to_le_bytes())))
+        Self::with_context(SHUFFLE_CONTEXT, seed)
+    }
+
+    /// A generator for `seed` under another purpose's context string, so
+    /// that (say) fold draws never repeat partition draws.
+    pub fn with_context(context: &str, seed: u64) -> Self {
+        SplitRng(ChaCha20Rng::from_seed(blake3::derive_key(context, &seed.to_le_bytes())))
     }
 
     /// A uniform draw from `0..n` by rejection: 64-bit words at or above the

@@ -230,13 +230,13 @@ fn golden_demo_split_is_stable() {
     assert_eq!(
         digests,
         [
-            "0c9e2a41bb146a1927f99e537392fd8197b3a97e2e2584c861a42373b6a2d8e0",
-            "45a8615a98257aaa8ba64429bbdf345c844577387d03eaaaa6012c13e0bde174",
-            "a9604c74661382e3dafdfd6079da80855c676caf185d0940afb1b41f0ea0c426",
+            "8117b662354fa670aedc6f6f6b9150290bd4258ed8cff1b30701b973e90de2f0",
+            "f31faf2f546ee36f3dd5fc3df420068edafdd9332120041bd2e47857ec36469a",
+            "f80cdb532a3d6ece7331fc1629db420d8602cdb835055e2b5ed77e3aaa7ad010",
         ]
     );
     let test_csv = std::fs::read(t.path("out/test.csv")).unwrap();
-    assert_eq!(blake3::hash(&test_csv).to_hex().as_str(), "bf852de4679df6997fb0cc164fe76f2ad84af8e5dcbdb181028c737d1c598f01");
+    assert_eq!(blake3::hash(&test_csv).to_hex().as_str(), "4f214ccffcc5832bf47d8c06ad596b2bb568f12968b986b1b92db3fe4846ca3f");
 }
 
 #[test]

@@ -102,10 +102,13 @@ fn a_resealed_manifest_is_caught_by_the_files_or_the_pin() {
     t.ok(&["verify", "out", "--expect-manifest", &pin]);
 
     // A row count changed and the checksum recomputed: the file disagrees.
-    reseal(&t.path("out/manifest.yaml"), |b| b.replacen("rows: 2100", "rows: 2101", 1));
+    let train_rows = crate::util::manifest(&t.path("out"))["partitions"][0]["rows"].as_u64().unwrap();
+    let (from, to) = (format!("rows: {train_rows}"), format!("rows: {}", train_rows + 1));
+    reseal(&t.path("out/manifest.yaml"), |b| b.replacen(&from, &to, 1));
     let r = t.run(&["verify", "out"]);
     assert_eq!(r.code, 1);
-    assert!(r.stdout.contains("train.csv: has 2100 rows, the seal says 2101"), "{}", r.stdout);
+    let said = format!("train.csv: has {train_rows} rows, the seal says {}", train_rows + 1);
+    assert!(r.stdout.contains(&said), "{}", r.stdout);
 
     // The seed changed and re-sealed: consistent, so only the pin catches it.
     let t = sealed();

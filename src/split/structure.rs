@@ -1,0 +1,470 @@
+//! Splits that respect the data's structure: entity groups, time order with
+//! an embargo gap, and stable (hash-based) assignment.
+//!
+//! The rules, as DEVELOPERS.md repeats them:
+//! - **Groups** (`--group`): rows with equal group values (compared by their
+//!   canonical encoding) share a partition. Groups are taken in a seeded
+//!   random order and each goes to the partition it brings closest to the
+//!   asked counts: without strata, the one with the most rows still missing;
+//!   with strata, the one that least increases the squared shortfall of every
+//!   stratum in every partition (each stratum weighted by its size).
+//! - **Time** (`--order-by`): rows sorted by time; the cuts fall at the
+//!   largest-remainder counts, moved to the nearest change of time so that
+//!   equal times never straddle. With partition start time s, rows of the
+//!   earlier partitions with time > s - gap are left out.
+//! - **Time with groups**: a group belongs to the partition in which it first
+//!   appears (groups ordered by their first time, cut at whole groups nearest
+//!   the asked counts). Rows of a group that fall after s - gap for a later
+//!   partition's start s are left out and counted, so no train row is at or
+//!   after the validation or test start, and no validation row at or after
+//!   the test start.
+//! - **Stable** (`--stable`): a row's (or group's) partition is read off a
+//!   keyed BLAKE3 hash of its digest and the seed, so it never moves when other
+//!   rows come or go; shares are then approximate.
+
+use std::collections::HashMap;
+
+use arrow_array::cast::AsArray;
+use arrow_array::types::{
+    Date32Type, Int64Type, TimestampMicrosecondType, TimestampMillisecondType, TimestampNanosecondType,
+    TimestampSecondType,
+};
+use arrow_array::{Array, ArrayRef};
+use arrow_schema::{DataType, TimeUnit};
+use std::path::Path;
+
+use crate::digest::RowDigest;
+use crate::error::{Error, Result};
+use crate::io::Batch;
+use crate::split::rng::SplitRng;
+use crate::split::{Ratios, Strata, DROPPED};
+use crate::value;
+
+/// What an order column holds.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum TimeKind {
+    /// Instants or local date-times, as microseconds since the epoch.
+    Timestamp,
+    /// Calendar dates, as microseconds since the epoch at midnight.
+    Date,
+    /// Plain integers (periods, sequence numbers).
+    Integer,
+}
+
+const MICROS_PER_DAY: i64 = 86_400_000_000;
+
+/// Reads the order column of a batch into comparable integers.
+///
+/// # Errors
+/// Nulls and values that are not times, dates or integers, naming the row.
+pub fn time_values(path: &Path, batch: &Batch, column: &str, out: &mut Vec<i64>) -> Result<TimeKind> {
+    let array: &ArrayRef = batch.data.column_by_name(column).expect("projected");
+    if let Some(i) = (0..array.len()).find(|&i| array.is_null(i)) {
+        return Err(batch.error_at(path, i, column, "has no value; every row needs a time to be ordered"));
+    }
+    let kind = match array.data_type() {
+        DataType::Timestamp(unit, _) => {
+            let per = match unit {
+                TimeUnit::Second => 1_000_000i64,
+                TimeUnit::Millisecond => 1_000,
+                TimeUnit::Microsecond => 1,
+                TimeUnit::Nanosecond => -1_000,
+            };
+            for i in 0..array.len() {
+                let v = match unit {
+                    TimeUnit::Second => array.as_primitive::<TimestampSecondType>().value(i),
+                    TimeUnit::Millisecond => array.as_primitive::<TimestampMillisecondType>().value(i),
+                    TimeUnit::Microsecond => array.as_primitive::<TimestampMicrosecondType>().value(i),
+                    TimeUnit::Nanosecond => array.as_primitive::<TimestampNanosecondType>().value(i),
+                };
+                let micros = if per > 0 { v.checked_mul(per) } else { Some(v.div_euclid(-per)) };
+                out.push(micros.ok_or_else(|| batch.error_at(path, i, column, "is out of range"))?);
+            }
+            TimeKind::Timestamp
+        }
+        DataType::Date32 | DataType::Date64 => {
+            let days = arrow_cast::cast(array, &DataType::Date32).map_err(|e| Error::Options(e.to_string()))?;
+            for v in days.as_primitive::<Date32Type>().values() {
+                out.push(*v as i64 * MICROS_PER_DAY);
+            }
+            TimeKind::Date
+        }
+        DataType::Int8 | DataType::Int16 | DataType::Int32 | DataType::Int64 | DataType::UInt8 | DataType::UInt16
+        | DataType::UInt32 | DataType::UInt64 => {
+            let ints = arrow_cast::cast(array, &DataType::Int64)
+                .map_err(|_| Error::Options(format!("--order-by: `{column}` holds integers beyond 64 bits")))?;
+            out.extend_from_slice(ints.as_primitive::<Int64Type>().values());
+            TimeKind::Integer
+        }
+        DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => {
+            // A text column: the first value that is not a time is the one to name.
+            let text = arrow_cast::cast(array, &DataType::Utf8).expect("text casts to text");
+            let text = text.as_string::<i32>();
+            for i in 0..text.len() {
+                let v = text.value(i);
+                if value::parse_timestamp(v).is_none()
+                    && value::parse_local_timestamp(v).is_none()
+                    && value::parse_date(v).is_none()
+                {
+                    return Err(batch.error_at(
+                        path,
+                        i,
+                        column,
+                        format!("`{}` is not a date, an RFC 3339 timestamp or an integer", value::shorten(v)),
+                    ));
+                }
+            }
+            return Err(Error::Options(format!(
+                "--order-by: `{column}` mixes dates and timestamps; give one kind of time"
+            )));
+        }
+        other => {
+            return Err(Error::Options(format!(
+                "--order-by: `{column}` has type {other}; it must hold timestamps, dates or integers"
+            )))
+        }
+    };
+    Ok(kind)
+}
+
+/// Parses `--gap`: `7d`, `36h`, `90m`, `45s`, `2w` for times and dates
+/// (returned in microseconds), a plain number for integer order columns.
+///
+/// # Errors
+/// Malformed text, a negative gap, or a unit that does not fit the column.
+pub fn parse_gap(text: &str, kind: TimeKind) -> Result<i64> {
+    let t = text.trim();
+    let split = t.find(|c: char| !c.is_ascii_digit()).unwrap_or(t.len());
+    let (number, unit) = t.split_at(split);
+    let n: i64 = number.parse().map_err(|_| {
+        Error::Options(format!("--gap `{text}` is not a whole number with a unit (e.g. 7d, 36h, 90m, 45s)"))
+    })?;
+    let per = match (kind, unit) {
+        (TimeKind::Integer, "") => return Ok(n),
+        (TimeKind::Integer, _) => {
+            return Err(Error::Options(format!(
+                "--gap `{text}`: the order column holds integers, so the gap is a plain number"
+            )))
+        }
+        (_, "w") => 7 * MICROS_PER_DAY,
+        (_, "d") => MICROS_PER_DAY,
+        (_, "h") => 3_600_000_000,
+        (_, "m") => 60_000_000,
+        (_, "s") => 1_000_000,
+        (_, "") => {
+            return Err(Error::Options(format!("--gap `{text}` needs a unit for a time column (w, d, h, m, s)")))
+        }
+        (_, u) => return Err(Error::Options(format!("--gap `{text}`: unknown unit `{u}` (w, d, h, m, s)"))),
+    };
+    n.checked_mul(per).ok_or_else(|| Error::Options(format!("--gap `{text}` is too large")))
+}
+
+/// A time value as text: RFC 3339 (UTC), an ISO date, or the integer.
+pub fn format_time(v: i64, kind: TimeKind) -> String {
+    match kind {
+        TimeKind::Integer => v.to_string(),
+        TimeKind::Date => {
+            let mut out = Vec::new();
+            crate::digest::write_date(v.div_euclid(MICROS_PER_DAY), &mut out);
+            String::from_utf8(out).expect("ASCII")
+        }
+        TimeKind::Timestamp => {
+            let mut out = Vec::new();
+            let secs = v.div_euclid(1_000_000);
+            let nanos = (v.rem_euclid(1_000_000) * 1000) as u32;
+            crate::digest::write_timestamp(secs, nanos, true, &mut out);
+            String::from_utf8(out).expect("ASCII")
+        }
+    }
+}
+
+/// Entity groups: one id per row, numbered by first appearance.
+pub struct Groups {
+    /// Group id of every row.
+    pub row_group: Vec<u32>,
+    /// Rows per group.
+    pub sizes: Vec<u64>,
+    /// Each group's digest.
+    pub digests: Vec<RowDigest>,
+    index: HashMap<RowDigest, u32>,
+}
+
+impl Groups {
+    /// No groups yet.
+    pub fn new() -> Self {
+        Groups { row_group: Vec::new(), sizes: Vec::new(), digests: Vec::new(), index: HashMap::new() }
+    }
+
+    /// Adds rows by their group digests.
+    pub fn push(&mut self, digests: &[RowDigest]) {
+        for d in digests {
+            let next = self.digests.len() as u32;
+            let id = *self.index.entry(*d).or_insert_with(|| {
+                self.digests.push(*d);
+                self.sizes.push(0);
+                next
+            });
+            self.sizes[id as usize] += 1;
+            self.row_group.push(id);
+        }
+    }
+
+    /// Number of groups.
+    pub fn len(&self) -> usize {
+        self.sizes.len()
+    }
+
+    /// True without rows.
+    pub fn is_empty(&self) -> bool {
+        self.sizes.is_empty()
+    }
+}
+
+impl Default for Groups {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
+/// Rows per stratum of each group, sparse: (stratum, rows) pairs.
+fn group_strata(groups: &Groups, strata: &Strata) -> Vec<Vec<(u32, u64)>> {
+    let mut out: Vec<Vec<(u32, u64)>> = vec![Vec::new(); groups.len()];
+    for (row, &g) in groups.row_group.iter().enumerate() {
+        let s = strata.row_stratum[row];
+        let list = &mut out[g as usize];
+        match list.iter_mut().find(|(t, _)| *t == s) {
+            Some((_, n)) => *n += 1,
+            None => list.push((s, 1)),
+        }
+    }
+    out
+}
+
+/// Assigns whole groups to partitions (see the module's rules).
+pub fn assign_grouped(groups: &Groups, strata: &Strata, ratios: &Ratios, seed: u64) -> Vec<u8> {
+    let k = ratios.partitions().len();
+    let n: u64 = groups.sizes.iter().sum();
+    let totals = ratios.allocate(n, &mut vec![0; k]);
+    let mut order: Vec<u32> = (0..groups.len() as u32).collect();
+    SplitRng::new(seed).shuffle(&mut order);
+    let mut group_partition = vec![0u8; groups.len()];
+    let stratified = strata.sizes.len() > 1;
+    let mut held = vec![0u64; k];
+    if !stratified {
+        for &g in &order {
+            let size = groups.sizes[g as usize];
+            // The partition missing the most rows; on a tie, the earlier one.
+            let p = (0..k).max_by_key(|&p| (totals[p] as i128 - held[p] as i128, std::cmp::Reverse(p))).expect("k > 0");
+            held[p] += size;
+            group_partition[g as usize] = p as u8;
+        }
+    } else {
+        let per_group = group_strata(groups, strata);
+        let n_strata = strata.sizes.len();
+        // Exact share targets per stratum and partition.
+        let targets: Vec<Vec<f64>> =
+            (0..k).map(|p| strata.sizes.iter().map(|&ns| ns as f64 * ratios.share(p)).collect()).collect();
+        let mut counts = vec![vec![0u64; n_strata]; k];
+        for &g in &order {
+            let g = g as usize;
+            let size = groups.sizes[g] as f64;
+            let mut best = (f64::INFINITY, 0usize);
+            for p in 0..k {
+                // Increase of the squared shortfall if g joins p.
+                let mut delta = 0.0;
+                for &(s, c) in &per_group[g] {
+                    let (s, c) = (s as usize, c as f64);
+                    let before = counts[p][s] as f64 - targets[p][s];
+                    delta += (c * (2.0 * before + c)) / strata.sizes[s] as f64;
+                }
+                let before = held[p] as f64 - totals[p] as f64;
+                delta += size * (2.0 * before + size) / n as f64;
+                if delta < best.0 {
+                    best = (delta, p);
+                }
+            }
+            let p = best.1;
+            for &(s, c) in &per_group[g] {
+                counts[p][s as usize] += c;
+            }
+            held[p] += groups.sizes[g];
+            group_partition[g] = p as u8;
+        }
+    }
+    groups.row_group.iter().map(|&g| group_partition[g as usize]).collect()
+}
+
+/// Assigns by a keyed hash of each unit's digest: partition p when the
+/// hash's first 8 bytes (little-endian) fall in p's slice of 0..2^64.
+pub fn assign_stable(unit_digests: &[RowDigest], ratios: &Ratios, seed: u64) -> Vec<u8> {
+    let key = blake3::derive_key("cleave 2026-12-02 stable assignment v1", &seed.to_le_bytes());
+    let k = ratios.partitions().len();
+    let mut bounds = Vec::with_capacity(k);
+    let mut cum = 0.0f64;
+    for p in 0..k - 1 {
+        cum += ratios.share(p);
+        bounds.push((cum * 2f64.powi(64)) as u128);
+    }
+    unit_digests
+        .iter()
+        .map(|d| {
+            let h = blake3::keyed_hash(&key, d);
+            let v = u64::from_le_bytes(h.as_bytes()[..8].try_into().expect("8 bytes")) as u128;
+            bounds.iter().position(|&b| v < b).unwrap_or(k - 1) as u8
+        })
+        .collect()
+}
+
+/// Index in `0..=n` of the cut nearest `target` at which the sorted times
+/// change (or an end), so that equal times stay on one side.
+fn snap(sorted: &[i64], target: usize) -> usize {
+    let n = sorted.len();
+    let ok = |i: usize| i == 0 || i == n || sorted[i - 1] != sorted[i];
+    let mut lo = target.min(n);
+    while !ok(lo) {
+        lo -= 1;
+    }
+    let mut hi = target.min(n);
+    while !ok(hi) {
+        hi += 1;
+    }
+    if target - lo <= hi - target {
+        lo
+    } else {
+        hi
+    }
+}
+
+/// A time-ordered assignment.
+pub struct TimePlan {
+    /// Partition per row (or [`DROPPED`]).
+    pub partition: Vec<u8>,
+    /// Start time of each partition (its earliest row).
+    pub starts: Vec<i64>,
+    /// Rows left out of each partition by the gap.
+    pub dropped_by_gap: Vec<u64>,
+    /// Rows left out of each partition because their group belongs to it but
+    /// they fall at or after a later partition's start.
+    pub dropped_by_group: Vec<u64>,
+}
+
+/// Assigns by time (see the module's rules).
+///
+/// # Errors
+/// When ties or groups leave a partition empty.
+pub fn assign_time(times: &[i64], groups: Option<&Groups>, ratios: &Ratios, gap: i64) -> Result<TimePlan> {
+    let k = ratios.partitions().len();
+    let n = times.len();
+    let totals = ratios.allocate(n as u64, &mut vec![0; k]);
+    let mut partition = vec![0u8; n];
+    let mut starts = vec![i64::MAX; k];
+    match groups {
+        None => {
+            let mut order: Vec<u32> = (0..n as u32).collect();
+            order.sort_by_key(|&r| (times[r as usize], r));
+            let sorted: Vec<i64> = order.iter().map(|&r| times[r as usize]).collect();
+            let mut cuts = vec![0usize];
+            let mut acc = 0usize;
+            for &t in &totals[..k - 1] {
+                acc += t as usize;
+                let c = snap(&sorted, acc).max(*cuts.last().expect("non-empty"));
+                cuts.push(c);
+            }
+            cuts.push(n);
+            for p in 0..k {
+                for &r in &order[cuts[p]..cuts[p + 1]] {
+                    partition[r as usize] = p as u8;
+                }
+                if cuts[p] < cuts[p + 1] {
+                    starts[p] = sorted[cuts[p]];
+                }
+            }
+        }
+        Some(groups) => {
+            let mut first = vec![i64::MAX; groups.len()];
+            for (row, &g) in groups.row_group.iter().enumerate() {
+                first[g as usize] = first[g as usize].min(times[row]);
+            }
+            let mut order: Vec<u32> = (0..groups.len() as u32).collect();
+            order.sort_by_key(|&g| (first[g as usize], groups.digests[g as usize]));
+            // Cut at whole groups nearest the asked row counts.
+            let mut group_partition = vec![0u8; groups.len()];
+            let mut p = 0usize;
+            let mut held = 0u64;
+            let mut boundary = totals[0];
+            for &g in &order {
+                let size = groups.sizes[g as usize];
+                while p < k - 1 && held + size / 2 >= boundary && held > 0 {
+                    p += 1;
+                    boundary += totals[p];
+                }
+                group_partition[g as usize] = p as u8;
+                starts[p] = starts[p].min(first[g as usize]);
+                held += size;
+            }
+            for (row, &g) in groups.row_group.iter().enumerate() {
+                partition[row] = group_partition[g as usize];
+            }
+        }
+    }
+    for (p, s) in starts.iter().enumerate() {
+        if *s == i64::MAX {
+            return Err(Error::Options(format!(
+                "the order column leaves the {} partition empty: {}",
+                ratios.partitions()[p],
+                if groups.is_some() { "too few groups start late enough" } else { "too many rows share the same times" }
+            )));
+        }
+    }
+    let mut dropped_by_gap = vec![0u64; k];
+    let mut dropped_by_group = vec![0u64; k];
+    for (row, &t) in times.iter().enumerate() {
+        let p = partition[row] as usize;
+        // The earliest later partition whose start (less the gap) this row reaches.
+        for q in p + 1..k {
+            if t >= starts[q] {
+                dropped_by_group[p] += 1;
+                partition[row] = DROPPED;
+                break;
+            }
+            if gap > 0 && t > starts[q].saturating_sub(gap) {
+                dropped_by_gap[p] += 1;
+                partition[row] = DROPPED;
+                break;
+            }
+        }
+    }
+    for p in 0..k {
+        if !partition.contains(&(p as u8)) {
+            return Err(Error::Options(format!(
+                "--gap leaves the {} partition empty: every one of its rows is within the gap",
+                ratios.partitions()[p]
+            )));
+        }
+    }
+    Ok(TimePlan { partition, starts, dropped_by_gap, dropped_by_group })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn gap_units() {
+        assert_eq!(parse_gap("7d", TimeKind::Timestamp).unwrap(), 7 * MICROS_PER_DAY);
+        assert_eq!(parse_gap("36h", TimeKind::Date).unwrap(), 36 * 3_600_000_000);
+        assert_eq!(parse_gap("5", TimeKind::Integer).unwrap(), 5);
+        assert!(parse_gap("5", TimeKind::Timestamp).is_err());
+        assert!(parse_gap("5d", TimeKind::Integer).is_err());
+        assert!(parse_gap("-1d", TimeKind::Date).is_err());
+        assert!(parse_gap("1y", TimeKind::Date).is_err());
+    }
+
+    #[test]
+    fn cuts_move_to_a_change_of_time() {
+        assert_eq!(snap(&[1, 2, 2, 2, 3], 2), 1);
+        assert_eq!(snap(&[1, 2, 2, 2, 3], 3), 4);
+        assert_eq!(snap(&[5, 5, 5], 1), 0);
+    }
+}
