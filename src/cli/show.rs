@@ -74,6 +74,50 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
             sanitize(&p.file)
         ));
     }
+    if let Some(g) = &m.groups {
+        t.push_str(&format!("\ngroups: {} by {}\n", g.count, g.columns.join(", ")));
+        for p in &m.partitions {
+            t.push_str(&format!("  {:<12} {:>8} groups\n", p.name.name(), p.groups.unwrap_or(0)));
+        }
+        for (stratum, dev) in &g.largest_deviation {
+            t.push_str(&format!("  `{}`: largest deviation from the asked share {dev} points\n", sanitize(stratum)));
+        }
+    }
+    if let Some(order) = &m.order {
+        t.push_str(&format!("\ntime order by `{}` ({:?}), gap {}\n", order.column, order.kind, o.gap.as_deref().unwrap_or("none")));
+        for p in &m.partitions {
+            if let Some(r) = &p.time {
+                t.push_str(&format!(
+                    "  {:<12} {} .. {}   left out by the gap: {}{}\n",
+                    p.name.name(),
+                    r.first,
+                    r.last,
+                    p.dropped_by_gap.unwrap_or(0),
+                    p.dropped_by_group_rule
+                        .map(|n| format!(", by the group rule: {n}"))
+                        .unwrap_or_default()
+                ));
+            }
+        }
+    }
+    if let Some(f) = &m.folds {
+        t.push_str(&format!("\nfolds: {} ({}) in column `{}`\n", f.k, f.kind.name(), f.column));
+        if f.blocks.is_empty() {
+            for p in m.partitions.iter().filter(|p| !p.folds.is_empty()) {
+                let sizes: Vec<String> = p.folds.iter().map(|(k, n)| format!("{k}:{n}")).collect();
+                t.push_str(&format!("  {:<12} {}\n", p.name.name(), sizes.join("  ")));
+            }
+        } else {
+            for b in &f.blocks {
+                let role = if b.block == 0 { "trains only".to_string() } else { format!("validates fold {}", b.block) };
+                t.push_str(&format!("  block {:<3} {:>8} rows  {} .. {}  {role}\n", b.block, b.rows, b.time.first, b.time.last));
+            }
+        }
+        for (stratum, sizes) in &f.strata {
+            let sizes: Vec<String> = sizes.iter().map(|n| n.to_string()).collect();
+            t.push_str(&format!("  `{}` per fold: {}\n", sanitize(stratum), sizes.join(" ")));
+        }
+    }
     if let Some(strata) = &m.strata {
         t.push_str(&format!("\nstrata: {} by {}\n", strata.count, o.stratify.join(", ")));
         for c in &strata.columns {

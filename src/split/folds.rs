@@ -283,4 +283,106 @@ mod tests {
         assert!(FoldCount::parse("1").unwrap_err().to_string().contains("at least 2"));
         assert!(FoldCount::parse("x").is_err());
     }
+
+    use proptest::prelude::*;
+    use std::collections::HashMap;
+
+    use crate::digest::RowDigest;
+
+    fn strata(classes: &[u32]) -> Strata {
+        let n = classes.iter().copied().max().unwrap_or(0) as usize + 1;
+        let mut sizes = vec![0u64; n];
+        for &c in classes {
+            sizes[c as usize] += 1;
+        }
+        Strata { row_stratum: classes.to_vec(), labels: (0..n).map(|i| i.to_string()).collect(), sizes, columns: vec![] }
+    }
+
+    fn sizes(fold: &[u32], k: u32) -> Vec<u64> {
+        let mut s = vec![0u64; k as usize];
+        for &f in fold.iter().filter(|&&f| f != NO_FOLD) {
+            s[f as usize] += 1;
+        }
+        s
+    }
+
+    proptest! {
+        // k-fold as defined in James et al., "An Introduction to Statistical
+        // Learning", 5.1.3: the development rows fall into k folds of about
+        // equal size; each row is validated exactly once, and each training
+        // set (the other k - 1 folds) holds (k - 1)/k of the rows.
+        #[test]
+        fn k_fold_definition(dev in proptest::collection::vec(any::<bool>(), 10..300), k in 2u32..10, seed in any::<u64>()) {
+            let n = dev.iter().filter(|&&d| d).count();
+            prop_assume!(n >= k as usize);
+            let (fold, kind, kk) = assign(&dev, FoldCount::K(k), &crate::split::strata::single(dev.len() as u64), None, None, seed).unwrap();
+            prop_assert_eq!(kind, FoldKind::KFold);
+            prop_assert_eq!(kk, k);
+            for (d, f) in dev.iter().zip(&fold) {
+                prop_assert_eq!(*d, *f != NO_FOLD, "every development row in exactly one fold, no other row in any");
+            }
+            let s = sizes(&fold, k);
+            for &size in &s {
+                let train = (n as u64 - size) as f64;
+                prop_assert!((train - (k - 1) as f64 * n as f64 / k as f64).abs() < 1.0);
+            }
+            prop_assert!(s.iter().max().unwrap() - s.iter().min().unwrap() <= 1);
+        }
+
+        #[test]
+        fn stratified_folds_balance_every_stratum(classes in proptest::collection::vec(0u32..4, 20..300), k in 2u32..6, seed in any::<u64>()) {
+            let dev = vec![true; classes.len()];
+            let st = strata(&classes);
+            let (fold, _, _) = assign(&dev, FoldCount::K(k), &st, None, None, seed).unwrap();
+            for c in 0..st.sizes.len() as u32 {
+                let only: Vec<u32> = fold.iter().zip(&classes).filter(|(_, &x)| x == c).map(|(f, _)| *f).collect();
+                let s = sizes(&only, k);
+                prop_assert!(s.iter().max().unwrap() - s.iter().min().unwrap() <= 1, "stratum {} sizes {:?}", c, s);
+            }
+            let s = sizes(&fold, k);
+            prop_assert!(s.iter().max().unwrap() - s.iter().min().unwrap() <= 1);
+        }
+
+        #[test]
+        fn grouped_folds_keep_groups_whole(ids in proptest::collection::vec(0u8..30, 20..300), k in 2u32..5, seed in any::<u64>()) {
+            let mut g = Groups::new();
+            let digests: Vec<RowDigest> = ids.iter().map(|&i| [i; 16]).collect();
+            g.push(&digests);
+            prop_assume!(g.len() >= k as usize);
+            let dev = vec![true; ids.len()];
+            let (fold, kind, _) = assign(&dev, FoldCount::K(k), &crate::split::strata::single(ids.len() as u64), Some(&g), None, seed).unwrap();
+            prop_assert_eq!(kind, FoldKind::Grouped);
+            let mut of = HashMap::new();
+            for (row, &f) in fold.iter().enumerate() {
+                prop_assert_eq!(*of.entry(g.row_group[row]).or_insert(f), f);
+            }
+        }
+
+        // Leave-one-out is k-fold with k = n (same reference, 5.1.2).
+        #[test]
+        fn leave_one_out_is_k_equals_n(dev in proptest::collection::vec(any::<bool>(), 2..100), seed in any::<u64>()) {
+            let n = dev.iter().filter(|&&d| d).count();
+            prop_assume!(n >= 2);
+            let (fold, kind, k) = assign(&dev, FoldCount::LeaveOneOut, &crate::split::strata::single(dev.len() as u64), None, None, seed).unwrap();
+            prop_assert_eq!(kind, FoldKind::LeaveOneOut);
+            prop_assert_eq!(k as usize, n);
+            prop_assert!(sizes(&fold, k).iter().all(|&s| s == 1));
+        }
+
+        // Rolling origin (Tashman 2000, "Out-of-sample tests of forecasting
+        // accuracy", International Journal of Forecasting; cited from
+        // memory): fold i validates on block i and trains on blocks before
+        // it, so it never trains on a row later than those it validates on.
+        #[test]
+        fn rolling_origin_never_trains_on_the_future(times in proptest::collection::vec(0i64..1000, 20..300), k in 2u32..6) {
+            let dev = vec![true; times.len()];
+            let Ok((fold, kind, _)) = assign(&dev, FoldCount::K(k), &crate::split::strata::single(times.len() as u64), None, Some(&times), 0) else { return Ok(()); };
+            prop_assert_eq!(kind, FoldKind::RollingOrigin);
+            for i in 1..=k {
+                let validate_min = times.iter().zip(&fold).filter(|(_, &f)| f == i).map(|(t, _)| *t).min().unwrap();
+                let train_max = times.iter().zip(&fold).filter(|(_, &f)| f < i).map(|(t, _)| *t).max().unwrap();
+                prop_assert!(train_max < validate_min, "fold {}: trains up to {}, validates from {}", i, train_max, validate_min);
+            }
+        }
+    }
 }

@@ -437,10 +437,14 @@ pub fn assign_time(times: &[i64], groups: Option<&Groups>, ratios: &Ratios, gap:
     }
     for p in 0..k {
         if !partition.contains(&(p as u8)) {
-            return Err(Error::Options(format!(
-                "--gap leaves the {} partition empty: every one of its rows is within the gap",
-                ratios.partitions()[p]
-            )));
+            let name = ratios.partitions()[p];
+            return Err(Error::Options(if dropped_by_group[p] > 0 {
+                format!(
+                    "the {name} partition's groups all reach past a later partition's start, so keeping groups whole leaves it empty (do the groups span the whole time range?)"
+                )
+            } else {
+                format!("--gap leaves the {name} partition empty: every one of its rows is within the gap")
+            }));
         }
     }
     Ok(TimePlan { partition, starts, dropped_by_gap, dropped_by_group })
@@ -466,5 +470,110 @@ mod tests {
         assert_eq!(snap(&[1, 2, 2, 2, 3], 2), 1);
         assert_eq!(snap(&[1, 2, 2, 2, 3], 3), 4);
         assert_eq!(snap(&[5, 5, 5], 1), 0);
+    }
+
+    use proptest::prelude::*;
+
+    fn groups_of(ids: &[u8]) -> Groups {
+        let mut g = Groups::new();
+        let digests: Vec<RowDigest> = ids.iter().map(|&i| [i; 16]).collect();
+        g.push(&digests);
+        g
+    }
+
+    fn ratios() -> impl Strategy<Value = Ratios> {
+        prop_oneof![Just("70,15,15"), Just("80,20"), Just("50,25,25")].prop_map(|r| Ratios::parse(r).unwrap())
+    }
+
+    proptest! {
+        #[test]
+        fn groups_never_straddle(ids in proptest::collection::vec(0u8..40, 3..300), classes in proptest::collection::vec(0u32..3, 300), r in ratios(), seed in any::<u64>()) {
+            let groups = groups_of(&ids);
+            let n_strata = 3;
+            let row_stratum: Vec<u32> = (0..ids.len()).map(|i| classes[i] % n_strata).collect();
+            let mut sizes = vec![0u64; n_strata as usize];
+            for &s in &row_stratum { sizes[s as usize] += 1; }
+            let strata = Strata { row_stratum, labels: vec!["a".into(), "b".into(), "c".into()], sizes, columns: vec![] };
+            for strata in [&strata, &crate::split::strata::single(ids.len() as u64)] {
+                let p = assign_grouped(&groups, strata, &r, seed);
+                let mut of_group = HashMap::new();
+                for (row, &g) in groups.row_group.iter().enumerate() {
+                    let first = *of_group.entry(g).or_insert(p[row]);
+                    prop_assert_eq!(first, p[row], "group {} straddles", g);
+                }
+            }
+        }
+
+        #[test]
+        fn time_order_ties_and_gap(times in proptest::collection::vec(0i64..60, 20..300), gap in 0i64..8, r in ratios()) {
+            let Ok(plan) = assign_time(&times, None, &r, gap) else { return Ok(()); };
+            let k = r.partitions().len();
+            // Every kept row of p is earlier than every row of p + 1.
+            for p in 0..k - 1 {
+                let max_p = times.iter().zip(&plan.partition).filter(|(_, &q)| q as usize == p).map(|(t, _)| *t).max();
+                let min_next = times.iter().zip(&plan.partition).filter(|(_, &q)| q as usize == p + 1).map(|(t, _)| *t).min();
+                if let (Some(a), Some(b)) = (max_p, min_next) {
+                    prop_assert!(a < b, "partition {} ends at {} but {} starts at {}", p, a, p + 1, b);
+                    // Kept rows of p are at or before the next start less the gap.
+                    prop_assert!(a <= plan.starts[p + 1] - gap);
+                }
+            }
+            // Equal times never straddle two partitions.
+            let mut at = HashMap::new();
+            for (t, &q) in times.iter().zip(&plan.partition) {
+                if q != DROPPED {
+                    let first = *at.entry(*t).or_insert(q);
+                    prop_assert_eq!(first, q);
+                }
+            }
+            // Exactly the rows inside a gap are left out, and they are counted.
+            let mut dropped = 0;
+            for (t, &q) in times.iter().zip(&plan.partition) {
+                let in_gap = (1..k).any(|s| *t < plan.starts[s] && *t > plan.starts[s] - gap);
+                prop_assert_eq!(q == DROPPED, in_gap, "time {}", t);
+                dropped += (q == DROPPED) as u64;
+            }
+            prop_assert_eq!(dropped, plan.dropped_by_gap.iter().sum::<u64>());
+        }
+
+        #[test]
+        fn grouped_time_keeps_groups_whole_and_order(rows in proptest::collection::vec((0u8..30, 0i64..100), 30..300), gap in 0i64..5, r in ratios()) {
+            let ids: Vec<u8> = rows.iter().map(|x| x.0).collect();
+            let times: Vec<i64> = rows.iter().map(|x| x.1).collect();
+            let groups = groups_of(&ids);
+            let Ok(plan) = assign_time(&times, Some(&groups), &r, gap) else { return Ok(()); };
+            let k = r.partitions().len();
+            let test_start = plan.starts[k - 1];
+            let mut of_group = HashMap::new();
+            for (row, &q) in plan.partition.iter().enumerate() {
+                if q == DROPPED { continue; }
+                let first = *of_group.entry(groups.row_group[row]).or_insert(q);
+                prop_assert_eq!(first, q, "group straddles");
+                if (q as usize) < k - 1 {
+                    prop_assert!(times[row] < test_start, "a {} row at {} is at or after the test start {}", q, times[row], test_start);
+                    prop_assert!(times[row] <= test_start - gap);
+                }
+            }
+        }
+
+        #[test]
+        fn stable_assignment_ignores_other_rows(keys in proptest::collection::vec(any::<[u8; 16]>(), 1..200), extra in proptest::collection::vec(any::<[u8; 16]>(), 0..50), seed in any::<u64>()) {
+            let r = Ratios::parse("70,15,15").unwrap();
+            let before = assign_stable(&keys, &r, seed);
+            let mut grown = keys.clone();
+            grown.extend(extra);
+            let after = assign_stable(&grown, &r, seed);
+            prop_assert_eq!(&before[..], &after[..keys.len()]);
+        }
+    }
+
+    #[test]
+    fn stable_shares_are_close_to_asked() {
+        let r = Ratios::parse("70,15,15").unwrap();
+        let keys: Vec<RowDigest> = (0u32..30_000).map(|i| *blake3::hash(&i.to_le_bytes()).as_bytes().first_chunk::<16>().unwrap()).collect();
+        let p = assign_stable(&keys, &r, 1);
+        let test = p.iter().filter(|&&x| x == 2).count() as f64 / 30_000.0;
+        // Binomial sd at n = 30000, p = 0.15 is 0.0021; allow 4 sd.
+        assert!((test - 0.15).abs() < 0.0084, "{test}");
     }
 }

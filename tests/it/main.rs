@@ -4,5 +4,6 @@ mod bad_input;
 mod formats;
 mod reference;
 mod split;
+mod structure;
 mod util;
 mod verify;
