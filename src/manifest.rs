@@ -358,10 +358,10 @@ impl Manifest {
         body.checksum = None;
         let mut text = String::from("# cleave split manifest: edit nothing; the last line is a checksum of every byte above it.\n");
         let yaml = serde_norway::to_string(&body).expect("manifest types serialise");
-        // YAML 1.1 readers (PyYAML among them) would turn an unquoted RFC 3339
-        // time into a timestamp object; quote it so every reader sees text.
-        let created = format!("created: {}\n", body.created);
-        text.push_str(&yaml.replacen(&created, &format!("created: '{}'\n", body.created), 1));
+        for line in yaml.lines() {
+            text.push_str(&quote_dates(line));
+            text.push('\n');
+        }
         let sum = blake3::hash(text.as_bytes()).to_hex().to_string();
         text.push_str(&format!("checksum: {sum}\n"));
         text
@@ -375,6 +375,30 @@ impl Manifest {
     /// The seal file of a kind.
     pub fn seal_file(&self, kind: SealKind) -> Option<&SealFile> {
         self.seal.files.iter().find(|f| f.kind == kind)
+    }
+}
+
+/// YAML 1.1 readers (PyYAML among them) turn an unquoted date or RFC 3339
+/// time into a date object; quote such values so that every reader sees text.
+fn quote_dates(line: &str) -> String {
+    let (head, value) = match line.rfind(": ") {
+        Some(p) => line.split_at(p + 2),
+        None => match line.trim_start().strip_prefix("- ") {
+            Some(v) => line.split_at(line.len() - v.len()),
+            None => return line.to_string(),
+        },
+    };
+    let b = value.as_bytes();
+    let looks_like_date = b.len() >= 10
+        && b[..4].iter().all(u8::is_ascii_digit)
+        && b[4] == b'-'
+        && b[5..7].iter().all(u8::is_ascii_digit)
+        && b[7] == b'-'
+        && !value.contains('\'');
+    if looks_like_date {
+        format!("{head}'{value}'")
+    } else {
+        line.to_string()
     }
 }
 

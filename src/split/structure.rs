@@ -12,12 +12,12 @@
 //!   largest-remainder counts, moved to the nearest change of time so that
 //!   equal times never straddle. With partition start time s, rows of the
 //!   earlier partitions with time > s - gap are left out.
-//! - **Time with groups**: a group belongs to the partition in which it first
-//!   appears (groups ordered by their first time, cut at whole groups nearest
-//!   the asked counts). Rows of a group that fall after s - gap for a later
-//!   partition's start s are left out and counted, so no train row is at or
-//!   after the validation or test start, and no validation row at or after
-//!   the test start.
+//! - **Time with groups**: the periods are cut as without groups; a group
+//!   then belongs to the partition of the period in which it first appears.
+//!   Rows of a group that fall after s - gap for a later partition's start s
+//!   are left out and counted, so no train row is at or after the validation
+//!   or test start, and no validation row at or after the test start. Shares
+//!   then differ from the asked ones by the rows this costs.
 //! - **Stable** (`--stable`): a row's (or group's) partition is read off a
 //!   keyed BLAKE3 hash of its digest and the seed, so it never moves when other
 //!   rows come or go; shares are then approximate.
@@ -359,61 +359,43 @@ pub fn assign_time(times: &[i64], groups: Option<&Groups>, ratios: &Ratios, gap:
     let totals = ratios.allocate(n as u64, &mut vec![0; k]);
     let mut partition = vec![0u8; n];
     let mut starts = vec![i64::MAX; k];
-    match groups {
-        None => {
-            let mut order: Vec<u32> = (0..n as u32).collect();
-            order.sort_by_key(|&r| (times[r as usize], r));
-            let sorted: Vec<i64> = order.iter().map(|&r| times[r as usize]).collect();
-            let mut cuts = vec![0usize];
-            let mut acc = 0usize;
-            for &t in &totals[..k - 1] {
-                acc += t as usize;
-                let c = snap(&sorted, acc).max(*cuts.last().expect("non-empty"));
-                cuts.push(c);
-            }
-            cuts.push(n);
-            for p in 0..k {
-                for &r in &order[cuts[p]..cuts[p + 1]] {
-                    partition[r as usize] = p as u8;
-                }
-                if cuts[p] < cuts[p + 1] {
-                    starts[p] = sorted[cuts[p]];
-                }
-            }
+    // The periods: cut the rows in time order at the asked counts, each cut
+    // moved to the nearest change of time.
+    let mut order: Vec<u32> = (0..n as u32).collect();
+    order.sort_by_key(|&r| (times[r as usize], r));
+    let sorted: Vec<i64> = order.iter().map(|&r| times[r as usize]).collect();
+    let mut cuts = vec![0usize];
+    let mut acc = 0usize;
+    for &t in &totals[..k - 1] {
+        acc += t as usize;
+        let c = snap(&sorted, acc).max(*cuts.last().expect("non-empty"));
+        cuts.push(c);
+    }
+    cuts.push(n);
+    for p in 0..k {
+        for &r in &order[cuts[p]..cuts[p + 1]] {
+            partition[r as usize] = p as u8;
         }
-        Some(groups) => {
-            let mut first = vec![i64::MAX; groups.len()];
-            for (row, &g) in groups.row_group.iter().enumerate() {
-                first[g as usize] = first[g as usize].min(times[row]);
-            }
-            let mut order: Vec<u32> = (0..groups.len() as u32).collect();
-            order.sort_by_key(|&g| (first[g as usize], groups.digests[g as usize]));
-            // Cut at whole groups nearest the asked row counts.
-            let mut group_partition = vec![0u8; groups.len()];
-            let mut p = 0usize;
-            let mut held = 0u64;
-            let mut boundary = totals[0];
-            for &g in &order {
-                let size = groups.sizes[g as usize];
-                while p < k - 1 && held + size / 2 >= boundary && held > 0 {
-                    p += 1;
-                    boundary += totals[p];
-                }
-                group_partition[g as usize] = p as u8;
-                starts[p] = starts[p].min(first[g as usize]);
-                held += size;
-            }
-            for (row, &g) in groups.row_group.iter().enumerate() {
-                partition[row] = group_partition[g as usize];
-            }
+        if cuts[p] < cuts[p + 1] {
+            starts[p] = sorted[cuts[p]];
+        }
+    }
+    if let Some(groups) = groups {
+        // A group belongs to the period in which it first appears.
+        let mut first = vec![i64::MAX; groups.len()];
+        for (row, &g) in groups.row_group.iter().enumerate() {
+            first[g as usize] = first[g as usize].min(times[row]);
+        }
+        let period = |t: i64| (0..k).rev().find(|&q| starts[q] != i64::MAX && t >= starts[q]).unwrap_or(0) as u8;
+        for (row, &g) in groups.row_group.iter().enumerate() {
+            partition[row] = period(first[g as usize]);
         }
     }
     for (p, s) in starts.iter().enumerate() {
         if *s == i64::MAX {
             return Err(Error::Options(format!(
-                "the order column leaves the {} partition empty: {}",
-                ratios.partitions()[p],
-                if groups.is_some() { "too few groups start late enough" } else { "too many rows share the same times" }
+                "the order column leaves the {} partition empty: too many rows share the same times",
+                ratios.partitions()[p]
             )));
         }
     }
@@ -442,6 +424,8 @@ pub fn assign_time(times: &[i64], groups: Option<&Groups>, ratios: &Ratios, gap:
                 format!(
                     "the {name} partition's groups all reach past a later partition's start, so keeping groups whole leaves it empty (do the groups span the whole time range?)"
                 )
+            } else if groups.is_some() && !partition.iter().any(|&q| q == p as u8) && dropped_by_gap[p] == 0 {
+                format!("no group first appears in the {name} period, so keeping groups whole leaves it empty")
             } else {
                 format!("--gap leaves the {name} partition empty: every one of its rows is within the gap")
             }));

@@ -58,3 +58,8 @@ fn pyarrow_parquet_gives_the_same_split_and_reads_partitions_back() {
 fn manifests_validate_against_the_schema() {
     reference("schema");
 }
+
+#[test]
+fn palmer_penguins_raw_grouped_by_nest_and_ordered_by_egg_date() {
+    reference("penguins_time");
+}

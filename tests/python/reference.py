@@ -351,6 +351,9 @@ def check_schema(binary, work):
         ["--stratify", "bloom_class", "--label", "bloom_class"],
         ["--ratios", "0.8,0.2"],
         ["--stratify", "ph,river", "--bins", "3", "--output-format", "jsonl"],
+        ["--group", "station", "--stratify", "bloom_class", "--folds", "3"],
+        ["--order-by", "sample_time", "--gap", "2d", "--folds", "4", "--ratios", "80,20"],
+        ["--stable", "--group", "station,river", "--folds", "loo", "--ratios", "90,10"],
     ]
     for i, extra in enumerate(runs):
         cleave(binary, "split", "water-quality.csv", "--out", f"o{i}", *extra, cwd=work)
@@ -361,6 +364,49 @@ def check_schema(binary, work):
     m["partitions"][0]["rows"] = -1
     assert list(validator.iter_errors(m)), "a negative row count must fail the schema"
     print("manifests validate")
+
+
+def check_penguins_time(binary, work):
+    """A grouped, time-ordered split of real data with natural entities and dates: the raw Palmer
+    penguins table (Horst, Hill and Gorman 2020, CC0; penguins_raw.csv of the PyPI package
+    palmerpenguins), nests ("Individual ID", 190 of them, seen in 1 to 3 seasons) ordered by the
+    date the first egg was observed ("Date Egg", 2007-11-09 to 2009-12-01), 80/20 with a 30-day gap:
+    the test set is the nests first seen late in the last season, and nothing of that season
+    before them trains."""
+    import palmerpenguins
+
+    src = os.path.join(os.path.dirname(palmerpenguins.__file__), "data", "penguins-raw.csv")
+    shutil.copy(src, os.path.join(work, "penguins-raw.csv"))
+    out = json.loads(cleave(binary, "split", "penguins-raw.csv", "--out", "out", "--group", "Individual ID",
+                            "--order-by", "Date Egg", "--gap", "30d", "--ratios", "80,20", "--json", cwd=work))
+    header, source = read_csv(os.path.join(work, "penguins-raw.csv"))
+    assert len(source) == 344
+    gi, di = header.index("Individual ID"), header.index("Date Egg")
+    m = manifest(os.path.join(work, "out"))
+    starts = [str(s) for s in m["order"]["starts"]]
+    part_of, kept = {}, 0
+    dates = {p: [] for p in ("train", "test")}
+    for p in dates:
+        h, rows = read_csv(os.path.join(work, "out", f"{p}.csv"))
+        assert h == header
+        for r in rows:
+            assert part_of.setdefault(r[gi], p) == p, f"nest {r[gi]} straddles"
+            dates[p].append(r[di])
+            kept += 1
+    # Each nest in one partition; no train row within 30 days before the test
+    # start or after it; every test row on or after it.
+    assert min(dates["test"]) >= starts[1], starts
+    gap_end = (datetime.fromisoformat(starts[1]) - __import__("datetime").timedelta(days=30)).date().isoformat()
+    assert max(dates["train"]) <= gap_end, (max(dates["train"]), gap_end)
+    # Nests first seen in the test period are exactly the test nests.
+    first = {}
+    for r in source:
+        first[r[gi]] = min(first.get(r[gi], r[di]), r[di])
+    assert {g for g, p in part_of.items() if p == "test"} == {g for g, d in first.items() if d >= starts[1]}
+    lost = out["dropped_by_gap"] + out["dropped_by_group_rule"]
+    assert kept + lost == 344, (kept, lost)
+    assert m["groups"]["count"] == len({r[gi] for r in source}) == 190
+    print("penguins by nest and date:", {p: len(v) for p, v in dates.items()}, "left out", lost, "starts", starts)
 
 
 if __name__ == "__main__":
