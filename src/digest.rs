@@ -73,6 +73,40 @@ impl DigestKey {
     }
 }
 
+impl DigestKey {
+    /// A fresh key from the operating system's random source.
+    ///
+    /// # Errors
+    /// The random source fails.
+    pub fn generate() -> std::result::Result<DigestKey, String> {
+        let mut key = [0u8; 32];
+        getrandom::fill(&mut key).map_err(|e| e.to_string())?;
+        Ok(DigestKey(key))
+    }
+
+    /// The key file's text: 64 hexadecimal digits and a line break.
+    pub fn to_file_text(&self) -> String {
+        format!("{}\n", hex(&self.0))
+    }
+
+    /// Reads a key file: 64 hexadecimal digits, surrounding whitespace allowed.
+    ///
+    /// # Errors
+    /// Unreadable files and anything but 64 hexadecimal digits.
+    pub fn read(path: &Path) -> Result<DigestKey> {
+        let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, "cannot read the digest key", e))?;
+        let t = text.trim();
+        if t.len() != 64 || !t.bytes().all(|b| b.is_ascii_hexdigit()) {
+            return Err(Error::malformed(path, "is not a digest key: it must hold 64 hexadecimal digits (256 bits)"));
+        }
+        let mut key = [0u8; 32];
+        for (i, byte) in key.iter_mut().enumerate() {
+            *byte = u8::from_str_radix(&t[2 * i..2 * i + 2], 16).expect("hex digits checked");
+        }
+        Ok(DigestKey(key))
+    }
+}
+
 impl std::fmt::Debug for DigestKey {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         write!(f, "DigestKey({})", self.fingerprint())
@@ -163,8 +197,23 @@ impl DigestSpec {
     /// # Errors
     /// Missing columns (listing those there are) and types cleave cannot digest.
     pub fn bind(&self, path: &Path, schema: &Schema) -> Result<BoundSpec> {
+        self.bind_columns(path, schema, true)
+    }
+
+    /// As [`DigestSpec::bind`] without the label columns: only features and
+    /// loose digests can then be computed (the row digests come out equal to
+    /// the features digests).
+    ///
+    /// # Errors
+    /// As [`DigestSpec::bind`].
+    pub fn bind_features(&self, path: &Path, schema: &Schema) -> Result<BoundSpec> {
+        self.bind_columns(path, schema, false)
+    }
+
+    fn bind_columns(&self, path: &Path, schema: &Schema, with_labels: bool) -> Result<BoundSpec> {
         let mut columns = Vec::new();
-        for name in self.features.iter().chain(&self.labels) {
+        let labels: &[String] = if with_labels { &self.labels } else { &[] };
+        for name in self.features.iter().chain(labels) {
             let index = schema.index_of(name).map_err(|_| Error::UnknownColumn {
                 path: path.to_path_buf(),
                 column: name.clone(),

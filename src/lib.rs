@@ -10,10 +10,12 @@
 //! - [`value`] and [`digest`]: what "the same row" means;
 //! - [`split`]: shares, strata, the seeded assignment and the split itself;
 //! - [`manifest`] and [`seal`]: what a split wrote and the seal over it;
-//! - [`verify`]: whether a sealed folder still matches.
+//! - [`verify`]: whether a sealed folder still matches;
+//! - [`check`]: later training files against the seal.
 
 #![warn(missing_docs)]
 
+pub mod check;
 pub mod cli;
 pub mod digest;
 pub mod error;

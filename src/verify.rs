@@ -14,7 +14,7 @@ use std::collections::BTreeMap;
 use arrow_array::cast::AsArray;
 use arrow_array::Array;
 
-use crate::digest::{content_digest, DigestSpec, GroupSpec, RowDigests};
+use crate::digest::{content_digest, DigestKey, DigestSpec, GroupSpec, RowDigests};
 use crate::error::Result;
 use crate::io::{self, Table, TypeHints};
 use crate::manifest::{self, SealKind};
@@ -41,6 +41,27 @@ pub struct VerifyReport {
     pub files_checked: usize,
     /// Rows re-read and re-digested.
     pub rows_checked: u64,
+    /// Whether rows were re-digested (a keyed seal needs its key for that).
+    pub redigested: bool,
+}
+
+/// Refuses a key that is not the seal's, by fingerprint.
+///
+/// # Errors
+/// A key given for an unkeyed seal, or one whose fingerprint differs.
+pub fn check_key(loaded: &manifest::LoadedManifest, key: Option<&DigestKey>) -> Result<()> {
+    let m = &loaded.manifest;
+    match (key, m.digest.keyed, &m.digest.key_fingerprint) {
+        (Some(_), false, _) => Err(crate::Error::Manifest {
+            path: loaded.path.clone(),
+            what: "seals unkeyed digests, but a digest key was given".into(),
+        }),
+        (Some(k), true, Some(fp)) if &k.fingerprint() != fp => Err(crate::Error::Manifest {
+            path: loaded.path.clone(),
+            what: format!("was sealed under the key with fingerprint {fp}; the key given has fingerprint {}", k.fingerprint()),
+        }),
+        _ => Ok(()),
+    }
 }
 
 impl VerifyReport {
@@ -56,9 +77,12 @@ impl VerifyReport {
 /// # Errors
 /// Only when the manifest cannot be read or parsed; everything else is a
 /// [`Problem`] in the report.
-pub fn verify(path: &Path, pin: Option<&str>) -> Result<VerifyReport> {
+pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>) -> Result<VerifyReport> {
     let loaded = manifest::load(path)?;
     let m = &loaded.manifest;
+    check_key(&loaded, key)?;
+    let key = key.filter(|_| m.digest.keyed);
+    let redigest = !m.digest.keyed || key.is_some();
     let manifest_name = loaded.path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
     let mut problems = Vec::new();
     let mut problem = |file: &str, what: String| problems.push(Problem { file: file.to_string(), what });
@@ -78,14 +102,14 @@ pub fn verify(path: &Path, pin: Option<&str>) -> Result<VerifyReport> {
     }
 
     let hints: TypeHints = m.source.columns.iter().map(|c| (c.name.clone(), c.column_type)).collect();
-    let spec = DigestSpec::new(&m.options.key, &m.options.label, None);
+    let spec = DigestSpec::new(&m.options.key, &m.options.label, key);
     if spec.features() != m.digest.features.as_slice() || spec.labels() != m.digest.labels.as_slice() {
         problem(&manifest_name, "the digest columns do not follow from the key and label options".into());
     }
     let mut files_checked = 0;
     let mut rows_checked = 0;
     let mut test_digests: Option<(Vec<(RowDigests, u64)>, Vec<crate::seal::SealRecord>)> = None;
-    let group_spec = (!m.options.group.is_empty()).then(|| GroupSpec::new(&m.options.group, None));
+    let group_spec = (!m.options.group.is_empty()).then(|| GroupSpec::new(&m.options.group, key));
     for part in &m.partitions {
         let file = loaded.file(&part.file);
         files_checked += 1;
@@ -102,7 +126,7 @@ pub fn verify(path: &Path, pin: Option<&str>) -> Result<VerifyReport> {
         if summary.blake3 != part.blake3 {
             problem(&part.file, format!("BLAKE3 is {}, the seal says {}", summary.blake3, part.blake3));
         }
-        if m.digest.keyed {
+        if !redigest {
             continue;
         }
         let is_test = part.name == Partition::Test;
@@ -168,7 +192,7 @@ pub fn verify(path: &Path, pin: Option<&str>) -> Result<VerifyReport> {
             problem(&manifest_name, format!("the seal lists no {} digest file", kind.name()));
         }
     }
-    Ok(VerifyReport { manifest_checksum: loaded.recorded.clone(), problems, files_checked, rows_checked })
+    Ok(VerifyReport { manifest_checksum: loaded.recorded.clone(), problems, files_checked, rows_checked, redigested: redigest })
 }
 
 /// What re-reading a partition yields.

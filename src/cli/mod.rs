@@ -1,6 +1,8 @@
 //! The command line: parse, resolve to a checked configuration, dispatch,
 //! and map the outcome to an exit code (0 done, 1 a finding, 2 an error).
 
+mod check;
+mod keygen;
 mod output;
 mod show;
 mod split;
@@ -26,6 +28,10 @@ enum Command {
     Verify(verify::Args),
     /// Show a readable summary of a manifest: sizes, shares and strata.
     Show(show::Args),
+    /// Check later training files for leaked test rows, near-copies, groups and time periods.
+    Check(check::Args),
+    /// Write a fresh 256-bit digest key for keyed seals.
+    Keygen(keygen::Args),
 }
 
 /// What a command ended with.
@@ -51,6 +57,8 @@ pub fn main() -> ExitCode {
         Command::Split(args) => split::run(args),
         Command::Verify(args) => verify::run(args),
         Command::Show(args) => show::run(args),
+        Command::Check(args) => check::run(args),
+        Command::Keygen(args) => keygen::run(args),
     };
     match result {
         Ok(Outcome::Ok) => ExitCode::SUCCESS,

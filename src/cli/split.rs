@@ -57,6 +57,9 @@ pub struct Args {
     /// Name of the fold column added to the development partitions.
     #[arg(long, default_value = "fold", value_name = "NAME")]
     fold_column: String,
+    /// Keyed digests: a file of 64 hexadecimal digits (`cleave keygen`); the seal then reveals nothing to whoever lacks it.
+    #[arg(long, value_name = "FILE")]
+    digest_key: Option<PathBuf>,
     /// Input format when the extension does not say.
     #[arg(long, value_parser = parse_format)]
     format: Option<Format>,
@@ -92,6 +95,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         stable: args.stable,
         folds,
         fold_column: args.fold_column,
+        digest_key: args.digest_key.as_deref().map(crate::digest::DigestKey::read).transpose()?,
         created: creation_time()?,
     };
     let outcome = split::run(&cfg).with_context(|| format!("cannot split `{}`", args.input.display()))?;

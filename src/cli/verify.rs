@@ -15,6 +15,9 @@ pub struct Args {
     /// Refuse any manifest whose checksum is not this one (the value `split` printed).
     #[arg(long, value_name = "HASH")]
     expect_manifest: Option<String>,
+    /// The digest key of a keyed seal, to re-digest the rows (without it only file checksums are checked).
+    #[arg(long, value_name = "FILE")]
+    digest_key: Option<PathBuf>,
     /// Print one JSON document instead of text.
     #[arg(long)]
     json: bool,
@@ -22,7 +25,8 @@ pub struct Args {
 
 pub fn run(args: Args) -> anyhow::Result<Outcome> {
     let pin = args.expect_manifest.as_deref().map(manifest::parse_pin).transpose()?;
-    let report = crate::verify::verify(&args.path, pin.as_deref())?;
+    let key = args.digest_key.as_deref().map(crate::digest::DigestKey::read).transpose()?;
+    let report = crate::verify::verify(&args.path, pin.as_deref(), key.as_ref())?;
     let shown = output::sanitize(&args.path.display().to_string());
     if args.json {
         output::json(&json!({
@@ -32,13 +36,18 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
             "pinned": pin.is_some(),
             "files_checked": report.files_checked,
             "rows_checked": report.rows_checked,
+            "redigested": report.redigested,
             "problems": report.problems,
         }))?;
     } else if report.intact() {
         output::print(&format!(
-            "intact: `{shown}` ({} files, {} rows re-digested)\nmanifest checksum: {}{}\n",
+            "intact: `{shown}` ({} files, {})\nmanifest checksum: {}{}\n",
             report.files_checked,
-            report.rows_checked,
+            if report.redigested {
+                format!("{} rows re-digested", report.rows_checked)
+            } else {
+                "checksums only: the seal is keyed; pass --digest-key to re-digest the rows".to_string()
+            },
             report.manifest_checksum,
             if pin.is_some() { " (as pinned)" } else { " (not pinned: pass --expect-manifest to rule out a re-sealed folder)" }
         ))?;

@@ -543,6 +543,24 @@ pub fn write_field(out: &mut Vec<u8>, text: &str) {
     }
 }
 
+/// Parses a text column into the given type, as the CSV reader would: for
+/// files whose columns arrive as text where the seal has typed values.
+///
+/// # Errors
+/// The index of the first value that does not fit, and what was expected.
+pub fn parse_text_column(
+    text: &arrow_array::StringArray,
+    t: ColumnType,
+) -> std::result::Result<ArrayRef, (usize, &'static str)> {
+    let n = arrow_array::Array::len(text);
+    let mut b = ColumnBuilder::new(t, n);
+    for i in 0..n {
+        let v = if arrow_array::Array::is_null(text, i) { "" } else { text.value(i) };
+        b.push(v).map_err(|expected| (i, expected))?;
+    }
+    Ok(b.finish())
+}
+
 enum ColumnBuilder {
     Integer(Int64Builder),
     Float(Float64Builder),

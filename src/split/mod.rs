@@ -79,6 +79,8 @@ pub struct SplitConfig {
     pub folds: Option<(FoldCount, String)>,
     /// Name of the fold column.
     pub fold_column: String,
+    /// Key for keyed digests.
+    pub digest_key: Option<crate::digest::DigestKey>,
     /// The manifest's creation time, RFC 3339.
     pub created: String,
 }
@@ -203,7 +205,7 @@ fn first_pass(
         needed.push(table.schema().field(0).name().clone());
     }
     let mut strata_builder = (!stratify.is_empty()).then(|| StrataBuilder::new(stratify, cfg.bins));
-    let group_spec = (!group.is_empty()).then(|| GroupSpec::new(group, None));
+    let group_spec = (!group.is_empty()).then(|| GroupSpec::new(group, cfg.digest_key.as_ref()));
     let mut groups = group_spec.as_ref().map(|_| Groups::new());
     let mut group_seen = vec![false; group.len()];
     let mut times: Option<(Vec<i64>, Option<TimeKind>)> = cfg.order_by.as_ref().map(|_| (Vec::new(), None));
@@ -313,7 +315,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             key.push(l.clone());
         }
     }
-    let spec = DigestSpec::new(&key, &label, None);
+    let spec = DigestSpec::new(&key, &label, cfg.digest_key.as_ref());
     spec.bind(&cfg.input, &schema)?;
     if spec.features().is_empty() {
         return Err(Error::Options("the key has no columns besides the label; nothing would identify a row".into()));
@@ -428,7 +430,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         let w = PartitionWriter::create(&staging.path.join(&file), output_format, target_schema, header.as_deref(), compression)?;
         writers.push((file, w));
     }
-    let group_spec = (!group.is_empty()).then(|| GroupSpec::new(&group, None));
+    let group_spec = (!group.is_empty()).then(|| GroupSpec::new(&group, cfg.digest_key.as_ref()));
     let mut digests: Vec<Vec<RowDigest>> = totals.iter().map(|&t| Vec::with_capacity(t as usize)).collect();
     let mut test_seal: Vec<(RowDigests, u64)> = Vec::with_capacity(totals[test_index] as usize);
     let mut test_groups: BTreeMap<RowDigest, u64> = BTreeMap::new();
@@ -673,8 +675,8 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             encoding: digest::ENCODING.into(),
             features: spec.features().to_vec(),
             labels: spec.labels().to_vec(),
-            keyed: false,
-            key_fingerprint: None,
+            keyed: cfg.digest_key.is_some(),
+            key_fingerprint: cfg.digest_key.as_ref().map(|k| k.fingerprint()),
         },
         strata: (!stratify.is_empty()).then(|| StrataRecord {
             columns: strata.columns.clone(),
@@ -689,7 +691,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         order: order_record,
         folds: fold_record,
         partitions: records,
-        seal: SealRecord { partition: Partition::Test, keyed: false, files: seal_files },
+        seal: SealRecord { partition: Partition::Test, keyed: cfg.digest_key.is_some(), files: seal_files },
         checksum: None,
     };
     let text = manifest.to_text();
