@@ -24,7 +24,7 @@ fn identity(t: &Test, input: &str, out: &str, extra: &[&str]) -> Vec<String> {
     v
 }
 
-fn demo_schema() -> Arc<Schema> {
+pub fn demo_schema() -> Arc<Schema> {
     let f = |n: &str, t: DataType| Field::new(n, t, true);
     Arc::new(Schema::new(vec![
         f("station", DataType::Utf8),

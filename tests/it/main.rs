@@ -1,6 +1,7 @@
 //! Integration tests: the real `cleave` binary on real files.
 
 mod bad_input;
+mod check;
 mod formats;
 mod reference;
 mod split;

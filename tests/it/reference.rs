@@ -63,3 +63,8 @@ fn manifests_validate_against_the_schema() {
 fn palmer_penguins_raw_grouped_by_nest_and_ordered_by_egg_date() {
     reference("penguins_time");
 }
+
+#[test]
+fn test_partition_exported_by_pyarrow_is_found_in_full() {
+    reference("cross_format");
+}

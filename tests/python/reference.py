@@ -366,6 +366,38 @@ def check_schema(binary, work):
     print("manifests validate")
 
 
+def check_cross_format(binary, work):
+    """The sealed test partition exported by pyarrow to Parquet (typed timestamps, zstd), with
+    its columns renamed on the way and renamed back, in another order and beside an extra
+    column, is found in full by check; so is a copy whose times are stored as text."""
+    shutil.copy(os.path.join(FIXTURES, "water-quality.csv"), work)
+    cleave(binary, "split", "water-quality.csv", "--out", "out", "--label", "bloom_class", "--group", "station", cwd=work)
+    test = pacsv.read_csv(os.path.join(work, "out", "test.csv"), convert_options=pacsv.ConvertOptions(strings_can_be_null=True))
+    n = test.num_rows
+    names = test.column_names
+    exported = test.rename_columns([f"col_{i}" for i in range(len(names))])  # an export tool's names
+    back = exported.rename_columns(names)  # renamed back
+    order = list(reversed(names))
+    back = back.select(order).append_column("rolling_mean", pa.array([0.5] * n))
+    pq.write_table(back, os.path.join(work, "exported.parquet"), compression="zstd")
+    as_text = back.set_column(back.column_names.index("sample_time"), "sample_time",
+                              pa.array([t.isoformat() for t in back.column("sample_time").to_pylist()]))
+    pq.write_table(as_text, os.path.join(work, "text-times.parquet"))
+    assert pa.types.is_timestamp(back.schema.field("sample_time").type)
+    for f in ("exported.parquet", "text-times.parquet"):
+        r = subprocess.run([binary, "check", f, "--against", "out", "--json"], cwd=work, env=ENV, capture_output=True, text=True)
+        assert r.returncode == 1, (f, r.returncode, r.stderr)
+        j = json.loads(r.stdout)
+        for kind in ("row", "features", "near", "group"):
+            assert j["findings"][kind]["count"] == n, (f, kind, j["findings"][kind]["count"], n)
+    # The train partition, exported the same way, stays clean.
+    train = pacsv.read_csv(os.path.join(work, "out", "train.csv"), convert_options=pacsv.ConvertOptions(strings_can_be_null=True))
+    pq.write_table(train.select(list(reversed(train.column_names))), os.path.join(work, "train.parquet"))
+    r = subprocess.run([binary, "check", "train.parquet", "--against", "out"], cwd=work, env=ENV, capture_output=True, text=True)
+    assert r.returncode == 0, r.stdout + r.stderr
+    print(f"all {n} test rows found in both exports; train clean")
+
+
 def check_penguins_time(binary, work):
     """A grouped, time-ordered split of real data with natural entities and dates: the raw Palmer
     penguins table (Horst, Hill and Gorman 2020, CC0; penguins_raw.csv of the PyPI package
