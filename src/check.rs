@@ -117,10 +117,10 @@ impl FileReport {
 pub struct Seal {
     /// The manifest.
     pub loaded: LoadedManifest,
-    rows: Option<Vec<SealRecord>>,
-    features: Vec<SealRecord>,
-    loose: Vec<SealRecord>,
-    groups: Option<Vec<SealRecord>>,
+    rows: Option<DigestSet>,
+    features: DigestSet,
+    loose: DigestSet,
+    groups: Option<DigestSet>,
     spec: DigestSpec,
     group_spec: Option<GroupSpec>,
     hints: TypeHints,
@@ -189,7 +189,16 @@ impl Seal {
         let spec = DigestSpec::new(&m.options.key, &m.options.label, key);
         let group_spec = (!m.options.group.is_empty()).then(|| GroupSpec::new(&m.options.group, key));
         let hints = m.source.columns.iter().map(|c| (c.name.clone(), c.column_type)).collect();
-        Ok(Seal { loaded, rows, features, loose, groups, spec, group_spec, hints })
+        Ok(Seal {
+            loaded,
+            rows: rows.map(DigestSet::new),
+            features: DigestSet::new(features),
+            loose: DigestSet::new(loose),
+            groups: groups.map(DigestSet::new),
+            spec,
+            group_spec,
+            hints,
+        })
     }
 
     /// Number of sealed test rows.
@@ -207,10 +216,50 @@ pub struct CheckOptions {
     pub format: Option<Format>,
 }
 
-/// The first record with this digest, if any.
-fn lookup(records: &[SealRecord], d: &RowDigest) -> Option<u64> {
-    let i = records.partition_point(|r| &r.0 < d);
-    records.get(i).filter(|r| &r.0 == d).map(|r| r.1)
+/// Sealed digests, sorted, with an index on their leading bits: digests are
+/// uniform, so the bucket of a digest's first `bits` bits holds about one
+/// record, and a lookup touches one or two cache lines (no second hash).
+pub struct DigestSet {
+    records: Vec<SealRecord>,
+    bits: u32,
+    starts: Vec<u32>,
+}
+
+impl DigestSet {
+    /// Indexes sorted records.
+    pub fn new(records: Vec<SealRecord>) -> Self {
+        let bits = (usize::BITS - records.len().leading_zeros()).clamp(4, 24);
+        let buckets = 1usize << bits;
+        let mut starts = vec![0u32; buckets + 1];
+        for r in &records {
+            starts[Self::bucket(&r.0, bits) + 1] += 1;
+        }
+        for i in 0..buckets {
+            starts[i + 1] += starts[i];
+        }
+        DigestSet { records, bits, starts }
+    }
+
+    fn bucket(d: &RowDigest, bits: u32) -> usize {
+        (u32::from_be_bytes([d[0], d[1], d[2], d[3]]) >> (32 - bits)) as usize
+    }
+
+    /// The test row of the first record with this digest, if any.
+    pub fn get(&self, d: &RowDigest) -> Option<u64> {
+        let b = Self::bucket(d, self.bits);
+        let slice = &self.records[self.starts[b] as usize..self.starts[b + 1] as usize];
+        slice.iter().find(|r| &r.0 == d).map(|r| r.1)
+    }
+
+    /// Number of records.
+    pub fn len(&self) -> usize {
+        self.records.len()
+    }
+
+    /// No records.
+    pub fn is_empty(&self) -> bool {
+        self.records.is_empty()
+    }
 }
 
 /// Makes a column of the checked file read the way the seal reads it: text
@@ -381,14 +430,14 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
                 bound.all_digests(&conformed.data, &all, &mut digests)?;
                 for (i, d) in digests.iter().enumerate() {
                     if rows_ok {
-                        if let Some(t) = lookup(seal.rows.as_ref().expect("rows seal"), &d.row) {
+                        if let Some(t) = seal.rows.as_ref().expect("rows seal").get(&d.row) {
                             collectors.get_mut(&Kind::Row).expect("on").hit(row_no(i), line(i), Some(t));
                         }
                     }
-                    if let Some(t) = lookup(&seal.features, &d.features) {
+                    if let Some(t) = seal.features.get(&d.features) {
                         collectors.get_mut(&Kind::Features).expect("on").hit(row_no(i), line(i), Some(t));
                     }
-                    if let Some(t) = lookup(&seal.loose, &d.loose) {
+                    if let Some(t) = seal.loose.get(&d.loose) {
                         collectors.get_mut(&Kind::Near).expect("on").hit(row_no(i), line(i), Some(t));
                     }
                 }
@@ -398,7 +447,7 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
                 seal.group_spec.as_ref().expect("groups").digests(path, &conformed.data, &mut group_digests)?;
                 let sealed = seal.groups.as_ref().expect("groups seal");
                 for (i, d) in group_digests.iter().enumerate() {
-                    if let Some(t) = lookup(sealed, d) {
+                    if let Some(t) = sealed.get(d) {
                         distinct_groups.insert(*d);
                         collectors.get_mut(&Kind::Group).expect("on").hit(row_no(i), line(i), Some(t));
                     }

@@ -260,14 +260,26 @@ impl BoundSpec {
     /// Types that cannot be encoded.
     pub fn row_digests(&self, batch: &RecordBatch, out: &mut Vec<RowDigest>) -> Result<()> {
         let encoders = self.encoders(batch)?;
-        let mut buf = Vec::with_capacity(256);
-        out.reserve(batch.num_rows());
-        for row in 0..batch.num_rows() {
-            buf.clear();
-            for e in &encoders {
-                e.write(row, &mut buf, false);
-            }
-            out.push(truncate(blake3::keyed_hash(&self.spec.row_key, &buf)));
+        use rayon::prelude::*;
+        let n = batch.num_rows();
+        let chunks: Vec<Vec<RowDigest>> = (0..n.div_ceil(4096))
+            .into_par_iter()
+            .map(|c| {
+                let mut buf = Vec::with_capacity(256);
+                (c * 4096..((c + 1) * 4096).min(n))
+                    .map(|row| {
+                        buf.clear();
+                        for e in &encoders {
+                            e.write(row, &mut buf, false);
+                        }
+                        truncate(blake3::keyed_hash(&self.spec.row_key, &buf))
+                    })
+                    .collect()
+            })
+            .collect();
+        out.reserve(n);
+        for c in chunks {
+            out.extend(c);
         }
         Ok(())
     }
@@ -278,27 +290,47 @@ impl BoundSpec {
     /// Types that cannot be encoded.
     pub fn all_digests(&self, batch: &RecordBatch, rows: &[usize], out: &mut Vec<RowDigests>) -> Result<()> {
         let encoders = self.encoders(batch)?;
-        let n_features = self.spec.features.len();
-        let mut buf = Vec::with_capacity(256);
-        let mut loose = Vec::with_capacity(256);
-        for &row in rows {
-            buf.clear();
-            loose.clear();
-            let mut features_end = 0;
-            for (i, e) in encoders.iter().enumerate() {
-                e.write(row, &mut buf, false);
-                if i < n_features {
-                    e.write(row, &mut loose, true);
-                    features_end = buf.len();
+        // Rows in chunks across threads; results come back in row order, so
+        // the output does not depend on the number of threads.
+        use rayon::prelude::*;
+        let chunks: Vec<Vec<RowDigests>> = rows
+            .par_chunks(4096)
+            .map(|chunk| {
+                let mut part = Vec::with_capacity(chunk.len());
+                let mut buf = Vec::with_capacity(256);
+                let mut loose = Vec::with_capacity(256);
+                for &row in chunk {
+                    part.push(self.one_row(&encoders, row, &mut buf, &mut loose));
                 }
-            }
-            out.push(RowDigests {
-                row: truncate(blake3::keyed_hash(&self.spec.row_key, &buf)),
-                features: truncate(blake3::keyed_hash(&self.spec.row_key, &buf[..features_end])),
-                loose: truncate(blake3::keyed_hash(&self.spec.loose_key, &loose)),
-            });
+                part
+            })
+            .collect();
+        for c in chunks {
+            out.extend(c);
         }
         Ok(())
+    }
+
+    fn one_row(&self, encoders: &[Encoder], row: usize, buf: &mut Vec<u8>, loose: &mut Vec<u8>) -> RowDigests {
+        let n_features = self.spec.features.len();
+        buf.clear();
+        loose.clear();
+        let mut features_end = 0;
+        for (i, e) in encoders.iter().enumerate() {
+            let start = buf.len();
+            e.write(row, buf, false);
+            if i < n_features {
+                // The loose encoding is derived from the exact one: each
+                // value is formatted once.
+                e.loosen(row, &buf[start..], loose);
+                features_end = buf.len();
+            }
+        }
+        RowDigests {
+            row: truncate(blake3::keyed_hash(&self.spec.row_key, buf)),
+            features: truncate(blake3::keyed_hash(&self.spec.row_key, &buf[..features_end])),
+            loose: truncate(blake3::keyed_hash(&self.spec.loose_key, loose)),
+        }
     }
 }
 
@@ -350,6 +382,11 @@ pub fn encode_value(array: &ArrayRef, row: usize, name: &str) -> Result<Vec<u8>>
     let mut out = Vec::new();
     Encoder::new(array, name)?.write(row, &mut out, false);
     Ok(out)
+}
+
+thread_local! {
+    /// A reused buffer for normalised text.
+    static LOOSE_TEXT: std::cell::Cell<String> = const { std::cell::Cell::new(String::new()) };
 }
 
 const TAG_NULL: u8 = 0;
@@ -437,6 +474,18 @@ impl Encoder {
         }
     }
 
+    /// Appends the loose encoding of value `row`, given its exact encoding:
+    /// text is normalised, floats rounded; everything else is unchanged.
+    fn loosen(&self, row: usize, exact: &[u8], out: &mut Vec<u8>) {
+        match self {
+            Encoder::Float64(_) | Encoder::Float32(_) if exact[0] == TAG_NUMBER => {
+                with_len(out, TAG_NUMBER, |o| value::round_text(&exact[5..], 6, o));
+            }
+            Encoder::Utf8(_) if exact[0] == TAG_STRING => self.write(row, out, true),
+            _ => out.extend_from_slice(exact),
+        }
+    }
+
     /// Appends value `row`'s encoding; `loose` normalises text and floats.
     fn write(&self, row: usize, out: &mut Vec<u8>, loose: bool) {
         match self.array() {
@@ -466,16 +515,16 @@ impl Encoder {
             }
             Encoder::Float64(a) => {
                 let v = a.as_primitive::<Float64Type>().value(row);
-                with_len(out, TAG_NUMBER, |o| match (loose, value::canonical_f64(v)) {
-                    (true, Some(c)) => c.round_significant(6).write(o),
-                    _ => value::write_f64(v, o),
+                with_len(out, TAG_NUMBER, |o| match loose.then(|| value::canonical_f64(v)).flatten() {
+                    Some(c) => c.round_significant(6).write(o),
+                    None => value::write_f64(v, o),
                 });
             }
             Encoder::Float32(a) => {
                 let v = a.as_primitive::<Float32Type>().value(row);
-                with_len(out, TAG_NUMBER, |o| match (loose, value::canonical_f32(v)) {
-                    (true, Some(c)) => c.round_significant(6).write(o),
-                    _ => value::write_f32(v, o),
+                with_len(out, TAG_NUMBER, |o| match loose.then(|| value::canonical_f32(v)).flatten() {
+                    Some(c) => c.round_significant(6).write(o),
+                    None => value::write_f32(v, o),
                 });
             }
             Encoder::Decimal(a, scale) => {
@@ -485,8 +534,14 @@ impl Encoder {
             Encoder::Utf8(a) => {
                 let s = a.as_string::<i32>().value(row);
                 if loose {
-                    let n = normalise_text(s);
-                    with_len(out, TAG_STRING, |o| o.extend_from_slice(n.as_bytes()));
+                    let n = LOOSE_TEXT.with(|cell| {
+                        let mut buf = cell.take();
+                        buf.clear();
+                        normalise_text_into(s, &mut buf);
+                        with_len(out, TAG_STRING, |o| o.extend_from_slice(buf.as_bytes()));
+                        buf
+                    });
+                    LOOSE_TEXT.with(|cell| cell.set(n));
                 } else {
                     with_len(out, TAG_STRING, |o| o.extend_from_slice(s.as_bytes()));
                 }
@@ -526,17 +581,34 @@ fn with_len(out: &mut Vec<u8>, tag: u8, body: impl FnOnce(&mut Vec<u8>)) {
 
 /// NFKC, default case folding, NFKC, trimmed, whitespace runs collapsed.
 pub fn normalise_text(s: &str) -> String {
+    let mut out = String::with_capacity(s.len());
+    normalise_text_into(s, &mut out);
+    out
+}
+
+/// As [`normalise_text`], appending to `out`. ASCII text, the common case,
+/// takes a fast path: NFKC leaves it as it is and case folding is lowering.
+pub fn normalise_text_into(s: &str, out: &mut String) {
+    if s.is_ascii() {
+        // char::is_whitespace, as the general path uses (it includes U+000B).
+        for word in s.split(char::is_whitespace).filter(|w| !w.is_empty()) {
+            if !out.is_empty() {
+                out.push(' ');
+            }
+            out.extend(word.chars().map(|c| c.to_ascii_lowercase()));
+        }
+        return;
+    }
     use unicode_normalization::UnicodeNormalization;
     let folded: String = caseless::default_case_fold_str(&s.nfkc().collect::<String>());
     let again: String = folded.nfkc().collect();
-    let mut out = String::with_capacity(again.len());
+    let start = out.len();
     for word in again.split_whitespace() {
-        if !out.is_empty() {
+        if out.len() > start {
             out.push(' ');
         }
         out.push_str(word);
     }
-    out
 }
 
 /// Civil date from days since 1970-01-01 (proleptic Gregorian; the

@@ -291,12 +291,90 @@ pub fn canonical_f32(v: f32) -> Option<Canonical> {
     Some(Canonical::from_shortest(buf.format_finite(v)))
 }
 
-/// Appends the canonical text of a double, non-finite values included.
+/// Appends the canonical text of a double, non-finite values included,
+/// without allocating: the shortest digits are taken off Ryu's output.
 pub fn write_f64(v: f64, out: &mut Vec<u8>) {
-    match canonical_f64(v) {
-        Some(c) => c.write(out),
-        None => out.extend_from_slice(non_finite(v).expect("not finite")),
+    if let Some(t) = non_finite(v) {
+        out.extend_from_slice(t);
+        return;
     }
+    let mut buf = ryu::Buffer::new();
+    write_shortest(if v == 0.0 { "0.0" } else { buf.format_finite(v) }, out);
+}
+
+/// Appends `[-]DIGITSeEXP` for a finite float's shortest text (`1.5`,
+/// `1e-7`, `1.2345e20`, `100.0`), as [`Canonical`] would write it.
+fn write_shortest(text: &str, out: &mut Vec<u8>) {
+    let b = text.as_bytes();
+    let (negative, b) = match b.first() {
+        Some(b'-') => (true, &b[1..]),
+        _ => (false, b),
+    };
+    let mut digits = [0u8; 40];
+    let mut n = 0usize;
+    let mut frac = 0i64;
+    let mut after_point = false;
+    let mut i = 0;
+    while i < b.len() && b[i] != b'e' && b[i] != b'E' {
+        match b[i] {
+            b'.' => after_point = true,
+            d => {
+                // Leading zeros carry no digit.
+                if n > 0 || d != b'0' {
+                    digits[n] = d;
+                    n += 1;
+                }
+                if after_point {
+                    frac += 1;
+                }
+            }
+        }
+        i += 1;
+    }
+    let mut exp: i64 = if i < b.len() {
+        std::str::from_utf8(&b[i + 1..]).ok().and_then(|e| e.parse().ok()).expect("float text has an integer exponent")
+    } else {
+        0
+    };
+    exp -= frac;
+    while n > 0 && digits[n - 1] == b'0' {
+        n -= 1;
+        exp += 1;
+    }
+    if n == 0 {
+        out.extend_from_slice(b"0e0");
+        return;
+    }
+    if negative {
+        out.push(b'-');
+    }
+    out.extend_from_slice(&digits[..n]);
+    out.push(b'e');
+    let mut e = itoa_buf::Buf::default();
+    if exp < 0 {
+        out.push(b'-');
+    }
+    out.extend_from_slice(e.format(exp.unsigned_abs()));
+}
+
+/// Rounds canonical number text (`DIGITSeEXP`) to `n` significant digits,
+/// half away from zero, as [`Canonical::round_significant`] does; other
+/// text (`nan`, `inf`) is copied.
+pub fn round_text(text: &[u8], n: usize, out: &mut Vec<u8>) {
+    let Some(e) = text.iter().position(|&b| b == b'e') else {
+        out.extend_from_slice(text);
+        return;
+    };
+    let (negative, digits) = match text[0] {
+        b'-' => (true, &text[1..e]),
+        _ => (false, &text[..e]),
+    };
+    if digits.len() <= n {
+        out.extend_from_slice(text);
+        return;
+    }
+    let exp: i64 = std::str::from_utf8(&text[e + 1..]).ok().and_then(|x| x.parse().ok()).expect("canonical exponent");
+    Canonical::new(negative, digits, exp).round_significant(n).write(out);
 }
 
 /// Appends the canonical text of a single-precision float.
@@ -399,6 +477,17 @@ mod tests {
         assert_eq!(text_f64(1.0 / 3.0), "3333333333333333e-16");
         assert_eq!(text_f64(1e300), "1e300");
         assert_eq!(text_f64(5e-324), "5e-324");
+    }
+
+    #[test]
+    fn fast_float_text_agrees_with_the_canonical_form() {
+        for v in [1.5, -0.25, 1e-7, 1.2345e20, 100.0, 0.1 + 0.2, -1e300, 5e-324, 123456.0, 7.0, -0.0, 0.0] {
+            let mut fast = Vec::new();
+            write_f64(v, &mut fast);
+            let mut slow = Vec::new();
+            canonical_f64(v).unwrap().write(&mut slow);
+            assert_eq!(String::from_utf8(fast).unwrap(), String::from_utf8(slow).unwrap(), "{v}");
+        }
     }
 
     #[test]

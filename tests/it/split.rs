@@ -250,3 +250,15 @@ fn parquet_and_arrow_outputs_are_byte_identical_across_runs() {
         assert_eq!(folder_bytes(&t.path(&format!("a-{f}"))), folder_bytes(&t.path(&format!("b-{f}"))), "{f}");
     }
 }
+
+#[test]
+fn outputs_do_not_depend_on_the_thread_count() {
+    let mut seen = Vec::new();
+    for threads in ["1", "4"] {
+        let t = Test::new().env("RAYON_NUM_THREADS", threads);
+        t.demo();
+        t.ok(&["split", "water-quality.csv", "--out", "out", "--group", "station", "--stratify", "bloom_class", "--label", "bloom_class", "--folds", "3", "--output-format", "parquet"]);
+        seen.push(folder_bytes(&t.path("out")));
+    }
+    assert_eq!(seen[0], seen[1]);
+}
