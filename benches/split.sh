@@ -1,33 +1,48 @@
 #!/usr/bin/env bash
-# Times `cleave split` and `cleave verify` on demo-scenario data at 1M and
-# 10M rows, as CSV and Parquet, and reports wall time and peak memory
-# (GNU time). Data goes to bench-data/ (not committed); sizes can be given:
-#   benches/split.sh 1000000 10000000
+# Benchmarks split, verify and check on demo-scenario data, next to the I/O
+# floor: cleave's own reader and writer copying the same file once with no
+# split work (and pyarrow doing the same, when it is installed).
+#
+#   benches/split.sh                 # 1M and 10M rows
+#   benches/split.sh 1000000         # sizes of your choice
+#
+# Data goes to bench-data/ (not committed). Reports wall seconds, rows per
+# second, peak resident memory (GNU time) and the ratio to the floor.
 set -euo pipefail
 cd "$(dirname "$0")/.."
-sizes=("${@:-1000000 10000000}")
-read -r -a sizes <<< "${sizes[*]}"
-cargo build --release --quiet --bin cleave --example demo_data
+if [ $# -gt 0 ]; then sizes=("$@"); else sizes=(1000000 10000000); fi
+cargo build --release --quiet --bin cleave --example demo_data --example copy_floor
 bin=target/release/cleave
-gen=target/release/examples/demo_data
 mkdir -p bench-data
-printf '%-22s %-7s %10s %12s %12s\n' input command seconds peak_MiB rows_per_s
+timed() { # label rows floor_seconds command...
+  local label=$1 rows=$2 floor=$3; shift 3
+  /usr/bin/time -f '%e %M' -o bench-data/time.txt "$@" > /dev/null 2> bench-data/stderr.txt || {
+    # check exits 1 when it finds leaks, which the benchmark plants on purpose
+    [ "$label" != "${label#check}" ] || { cat bench-data/stderr.txt; exit 1; }
+  }
+  read -r secs kib < <(tail -n 1 bench-data/time.txt)
+  awk -v l="$label" -v s="$secs" -v k="$kib" -v n="$rows" -v f="$floor" 'BEGIN {
+    ratio = (f > 0 ? sprintf("%.2fx", s / f) : "-")
+    printf "%-34s %8.2f s %12.0f rows/s %9.0f MiB   %s of floor\n", l, s, (s > 0 ? n / s : 0), k / 1024, ratio }'
+  LAST=$secs
+}
 for n in "${sizes[@]}"; do
-  for ext in csv parquet; do
+  for ext in parquet csv; do
     input="bench-data/wq-$n.$ext"
-    [ -f "$input" ] || "$gen" --rows "$n" "$input" 2>/dev/null
+    [ -f "$input" ] || target/release/examples/demo_data --rows "$n" "$input" 2>/dev/null
+    echo "== $n rows, $ext ($(du -hL "$input" | cut -f1))"
+    timed "floor: read + write once" "$n" 0 target/release/examples/copy_floor "$input" "bench-data/copy.$ext"
+    floor=$LAST
+    if [ "$ext" = parquet ] && python3 -c 'import pyarrow' 2>/dev/null; then
+      timed "pyarrow: read + write once" "$n" "$floor" python3 -c \
+        "import pyarrow.parquet as pq, sys; pq.write_table(pq.read_table(sys.argv[1]), sys.argv[2])" \
+        "$input" bench-data/pyarrow-copy.parquet
+    fi
     out="bench-data/out-$n-$ext"
     rm -rf "$out"
-    for cmd in split verify; do
-      if [ "$cmd" = split ]; then
-        args=(split "$input" --out "$out" --stratify bloom_class --label bloom_class)
-      else
-        args=(verify "$out")
-      fi
-      /usr/bin/time -f '%e %M' -o bench-data/time.txt "$bin" "${args[@]}" > /dev/null
-      read -r secs kib < bench-data/time.txt
-      awk -v i="$(basename "$input")" -v c="$cmd" -v s="$secs" -v k="$kib" -v n="$n" \
-        'BEGIN { printf "%-22s %-7s %10.2f %12.1f %12.0f\n", i, c, s, k / 1024, (s > 0 ? n / s : 0) }'
-    done
+    timed "split (stratified, label, group)" "$n" "$floor" \
+      "$bin" split "$input" --out "$out" --stratify bloom_class --label bloom_class --group station
+    timed "verify" "$n" "$floor" "$bin" verify "$out"
+    timed "check of the input vs the seal" "$n" "$floor" "$bin" check "$input" --against "$out"
   done
 done

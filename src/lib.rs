@@ -22,6 +22,8 @@ pub mod error;
 pub mod io;
 pub mod manifest;
 pub mod seal;
+pub mod ledger;
+pub mod score;
 pub mod split;
 pub mod value;
 pub mod verify;

@@ -56,6 +56,9 @@ pub struct Manifest {
     pub folds: Option<FoldRecord>,
     /// One entry per partition, in order train, validation, test.
     pub partitions: Vec<PartitionRecord>,
+    /// The label-free test file for the evaluator hand-off (with `--label`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub handoff: Option<HandoffRecord>,
     /// The seal over the test partition.
     pub seal: SealRecord,
     /// BLAKE3 of everything above it; present when read from a file.
@@ -292,6 +295,22 @@ pub struct BlockRecord {
     pub time: TimeRange,
 }
 
+/// The label-free test file: what the modelling team predicts on.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct HandoffRecord {
+    /// File name inside the folder.
+    pub file: String,
+    /// Rows (the test rows, in order).
+    pub rows: u64,
+    /// File size.
+    pub bytes: u64,
+    /// BLAKE3-256 of the file.
+    pub blake3: String,
+    /// The row id column.
+    pub row_id: String,
+}
+
 /// The seal over the test partition.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -496,7 +515,12 @@ pub fn load(path: &Path) -> Result<LoadedManifest> {
             ),
         ));
     }
-    let names = manifest.partitions.iter().map(|p| &p.file).chain(manifest.seal.files.iter().map(|f| &f.file));
+    let names = manifest
+        .partitions
+        .iter()
+        .map(|p| &p.file)
+        .chain(manifest.seal.files.iter().map(|f| &f.file))
+        .chain(manifest.handoff.iter().map(|h| &h.file));
     for name in names {
         if !is_plain_name(name) {
             return Err(manifest_err(&path, format!("names `{name}`, which is not a file inside its folder")));

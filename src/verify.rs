@@ -153,6 +153,20 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>) -> Result
             Err(e) => problem(&part.file, format!("cannot be read: {e}")),
         }
     }
+    if let Some(h) = &m.handoff {
+        files_checked += 1;
+        match io::hash_file(&loaded.file(&h.file)) {
+            Err(_) => problem(&h.file, "the label-free test file is missing or unreadable".into()),
+            Ok(summary) => {
+                if summary.bytes != h.bytes {
+                    problem(&h.file, format!("size is {} bytes, the seal says {}", summary.bytes, h.bytes));
+                }
+                if summary.blake3 != h.blake3 {
+                    problem(&h.file, format!("BLAKE3 is {}, the seal says {}", summary.blake3, h.blake3));
+                }
+            }
+        }
+    }
     for sf in &m.seal.files {
         files_checked += 1;
         let file = loaded.file(&sf.file);

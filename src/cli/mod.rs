@@ -4,6 +4,7 @@
 mod check;
 mod keygen;
 mod output;
+mod score;
 mod show;
 mod split;
 mod verify;
@@ -32,6 +33,10 @@ enum Command {
     Check(check::Args),
     /// Write a fresh 256-bit digest key for keyed seals.
     Keygen(keygen::Args),
+    /// Score predictions on the sealed test set and record it in the ledger.
+    Score(score::ScoreArgs),
+    /// List the scorings of a sealed test set and verify the ledger's chain.
+    Ledger(score::LedgerArgs),
 }
 
 /// What a command ended with.
@@ -59,6 +64,8 @@ pub fn main() -> ExitCode {
         Command::Show(args) => show::run(args),
         Command::Check(args) => check::run(args),
         Command::Keygen(args) => keygen::run(args),
+        Command::Score(args) => score::run_score(args),
+        Command::Ledger(args) => score::run_ledger(args),
     };
     match result {
         Ok(Outcome::Ok) => ExitCode::SUCCESS,

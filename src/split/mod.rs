@@ -34,13 +34,25 @@ use crate::digest::{self, content_digest, DigestSpec, GroupSpec, RowDigest, RowD
 use crate::error::{Error, Result};
 use crate::io::{self, ColumnType, Format, PartitionWriter, Table, TypeHints};
 use crate::manifest::{
-    self, BlockRecord, ColumnRecord, DigestRecord, FoldRecord, GroupRecord, Manifest, OrderRecord, PartitionRecord,
+    self, BlockRecord, ColumnRecord, DigestRecord, FoldRecord, GroupRecord, HandoffRecord, Manifest, OrderRecord, PartitionRecord,
     SealFile, SealKind, SealRecord, ShortStratum, Source, SplitOptionsRecord, StrataRecord, TimeRange, Tool,
 };
 use crate::seal;
 
 /// The partition code of a row left out (by the gap or the group rule).
 pub const DROPPED: u8 = u8::MAX;
+
+/// The row id column of the label-free test file.
+pub const ROW_ID: &str = "row_id";
+
+/// The row id of test row `test_row` (1-based): 16 hexadecimal digits of
+/// BLAKE3 keyed with `derive_key("cleave 2026-12-02 row id v1", seed)` over
+/// the row number. It depends on the position and the seed only, so it
+/// reveals nothing about the row's label.
+pub fn row_id(seed: u64, test_row: u64) -> String {
+    let key = blake3::derive_key("cleave 2026-12-02 row id v1", &seed.to_le_bytes());
+    digest::hex(&blake3::keyed_hash(&key, &test_row.to_le_bytes()).as_bytes()[..8])
+}
 
 /// Everything a split needs, checked by the caller's option parsing.
 #[derive(Debug, Clone)]
@@ -430,6 +442,28 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         let w = PartitionWriter::create(&staging.path.join(&file), output_format, target_schema, header.as_deref(), compression)?;
         writers.push((file, w));
     }
+    // The evaluator hand-off: test rows without labels, with a row_id.
+    let mut handoff = None;
+    if !label.is_empty() {
+        if schema.index_of(ROW_ID).is_ok() {
+            return Err(Error::Options(format!(
+                "the input already has a column `{ROW_ID}`, which the label-free test file needs for its row ids"
+            )));
+        }
+        let keep: Vec<usize> =
+            (0..schema.fields().len()).filter(|&i| !label.contains(schema.field(i).name())).collect();
+        let mut fields = vec![Field::new(ROW_ID, DataType::Utf8, false)];
+        fields.extend(keep.iter().map(|&i| schema.field(i).clone()));
+        let hschema: SchemaRef = Arc::new(Schema::new_with_metadata(fields, schema.metadata().clone()));
+        let file = format!("test.features.{}", output_format.extension());
+        let compression = if output_format == Format::Parquet && format == Format::Parquet {
+            io::parquet_compression(&cfg.input)
+        } else {
+            None
+        };
+        let w = PartitionWriter::create(&staging.path.join(&file), output_format, &hschema, None, compression)?;
+        handoff = Some((file, w, keep, hschema, 0u64));
+    }
     let group_spec = (!group.is_empty()).then(|| GroupSpec::new(&group, cfg.digest_key.as_ref()));
     let mut digests: Vec<Vec<RowDigest>> = totals.iter().map(|&t| Vec::with_capacity(t as usize)).collect();
     let mut test_seal: Vec<(RowDigests, u64)> = Vec::with_capacity(totals[test_index] as usize);
@@ -476,6 +510,21 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             test_seal.push((d, row));
             if group_spec.is_some() {
                 test_groups.entry(group_digests[test_rows[j]]).or_insert(row);
+            }
+        }
+        if let Some((_, w, keep, hschema, written)) = handoff.as_mut() {
+            if !test_rows.is_empty() {
+                let take = UInt32Array::from(indices[test_index].clone());
+                let part = arrow_select::take::take_record_batch(&batch.data, &take)
+                    .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?;
+                let ids: Vec<String> =
+                    (0..part.num_rows()).map(|i| row_id(cfg.seed, *written + i as u64 + 1)).collect();
+                let mut columns: Vec<ArrayRef> = vec![Arc::new(arrow_array::StringArray::from(ids))];
+                columns.extend(keep.iter().map(|&i| part.column(i).clone()));
+                let features = RecordBatch::try_new(hschema.clone(), columns)
+                    .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?;
+                w.write_batch(&features)?;
+                *written += part.num_rows() as u64;
             }
         }
         for (p, (_, w)) in writers.iter_mut().enumerate() {
@@ -574,6 +623,13 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         ));
     }
 
+    let handoff_record = match handoff {
+        Some((file, w, _, _, rows)) => {
+            let summary = w.finish()?;
+            Some(HandoffRecord { file, rows, bytes: summary.bytes, blake3: summary.blake3, row_id: ROW_ID.into() })
+        }
+        None => None,
+    };
     let test_group_records: Vec<seal::SealRecord> = test_groups.into_iter().collect();
     let seal_files =
         write_seal(&staging.path, &test_seal, group_spec.as_ref().map(|_| test_group_records.as_slice()))?;
@@ -691,6 +747,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         order: order_record,
         folds: fold_record,
         partitions: records,
+        handoff: handoff_record,
         seal: SealRecord { partition: Partition::Test, keyed: cfg.digest_key.is_some(), files: seal_files },
         checksum: None,
     };

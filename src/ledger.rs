@@ -1,0 +1,207 @@
+//! The scoring ledger: `DIR/ledger.jsonl`, one entry per scoring of the
+//! sealed test set, each carrying the BLAKE3 of the one before it.
+//!
+//! An entry's own hash (`entry`) is BLAKE3 over its JSON without the `entry`
+//! field, exactly as written on its line; `previous` is the entry hash of the
+//! line before (64 zeros for the first). So an edited entry fails its own
+//! hash, a deleted or reordered one breaks `seq` and the chain, and only a
+//! deleted last entry needs the pinned head (`--expect-head`) to be seen. The
+//! predictions each entry scored are stored in `DIR/scores/` under the entry's
+//! sequence number, with their BLAKE3 in the entry, for the optimism estimate.
+
+use std::path::{Path, PathBuf};
+
+use serde::{Deserialize, Serialize};
+
+use crate::error::{Error, Result};
+
+/// The ledger's file name inside a split folder.
+pub const FILE_NAME: &str = "ledger.jsonl";
+/// The folder of stored predictions.
+pub const SCORES_DIR: &str = "scores";
+/// `previous` of the first entry.
+pub const GENESIS: &str = "0000000000000000000000000000000000000000000000000000000000000000";
+
+/// One scoring, without its own hash.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct EntryBody {
+    /// 1-based position in the ledger.
+    pub seq: u64,
+    /// When (RFC 3339, UTC).
+    pub time: String,
+    /// The submission's name.
+    pub name: String,
+    /// BLAKE3 of the predictions file as given.
+    pub predictions_blake3: String,
+    /// The metric.
+    pub metric: String,
+    /// Its value.
+    pub value: f64,
+    /// The bootstrap interval.
+    pub interval: [f64; 2],
+    /// The interval's confidence.
+    pub confidence: f64,
+    /// Bootstrap resamples.
+    pub resamples: u64,
+    /// The seed of the resamples.
+    pub seed: u64,
+    /// Test rows scored.
+    pub rows: u64,
+    /// The positive class, for binary auc and f1.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub positive: Option<String>,
+    /// The stored predictions, relative to the folder.
+    pub stored: String,
+    /// BLAKE3 of the stored predictions.
+    pub stored_blake3: String,
+    /// The manifest checksum of the seal scored against.
+    pub manifest: String,
+    /// Entry hash of the line before.
+    pub previous: String,
+}
+
+/// An entry as written: the body and its hash.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Entry {
+    /// The body's fields.
+    #[serde(flatten)]
+    pub body: EntryBody,
+    /// BLAKE3 of the body's JSON.
+    pub entry: String,
+}
+
+impl EntryBody {
+    /// The hash of this body: BLAKE3 of its JSON.
+    pub fn hash(&self) -> String {
+        blake3::hash(serde_json::to_string(self).expect("entries serialise").as_bytes()).to_hex().to_string()
+    }
+
+    /// The entry with its hash, as one JSON line.
+    pub fn seal(self) -> (Entry, String) {
+        let entry = self.hash();
+        let e = Entry { body: self, entry };
+        let line = serde_json::to_string(&e).expect("entries serialise");
+        (e, line)
+    }
+}
+
+/// A problem with the ledger.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct Problem {
+    /// The entry (1-based line) it concerns.
+    pub entry: u64,
+    /// What is wrong.
+    pub what: String,
+}
+
+/// The ledger as read and checked.
+#[derive(Debug, Clone, Default)]
+pub struct Ledger {
+    /// Entries that could be read, in file order.
+    pub entries: Vec<Entry>,
+    /// Every problem found; empty means intact.
+    pub problems: Vec<Problem>,
+}
+
+impl Ledger {
+    /// The head: the last entry's hash (the genesis value when empty).
+    pub fn head(&self) -> String {
+        self.entries.last().map_or_else(|| GENESIS.to_string(), |e| e.entry.clone())
+    }
+
+    /// Whether the chain holds.
+    pub fn intact(&self) -> bool {
+        self.problems.is_empty()
+    }
+}
+
+/// Reads and checks `DIR/ledger.jsonl` (absent: an empty ledger).
+///
+/// # Errors
+/// Only when the file exists but cannot be read.
+pub fn read(dir: &Path, expect_head: Option<&str>) -> Result<Ledger> {
+    let path = dir.join(FILE_NAME);
+    let text = match std::fs::read_to_string(&path) {
+        Ok(t) => t,
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => String::new(),
+        Err(e) => return Err(Error::io(&path, "cannot read the ledger", e)),
+    };
+    let mut ledger = Ledger::default();
+    let mut previous = GENESIS.to_string();
+    for (i, line) in text.lines().enumerate() {
+        let n = i as u64 + 1;
+        let mut problem = |what: String| ledger.problems.push(Problem { entry: n, what });
+        let e: Entry = match serde_json::from_str(line) {
+            Ok(e) => e,
+            Err(err) => {
+                problem(format!("entry {n} cannot be read: {err}"));
+                previous = String::new();
+                continue;
+            }
+        };
+        if e.body.hash() != e.entry || serde_json::to_string(&e).ok().as_deref() != Some(line) {
+            problem(format!("entry {n} (`{}`) was edited: its contents no longer hash to its entry hash", e.body.name));
+        }
+        if e.body.seq != n {
+            if e.body.seq > n {
+                problem(format!("entry {n} is missing: line {n} holds entry {}", e.body.seq));
+            } else {
+                problem(format!("entries are out of order: line {n} holds entry {}", e.body.seq));
+            }
+        } else if e.body.previous != previous && !previous.is_empty() {
+            problem(format!("entry {n} does not follow entry {}: one was changed, removed or moved", n - 1));
+        }
+        let stored = dir.join(&e.body.stored);
+        match std::fs::read(&stored) {
+            Ok(bytes) if blake3::hash(&bytes).to_hex().as_str() == e.body.stored_blake3 => {}
+            Ok(_) => problem(format!("the stored predictions of entry {n} (`{}`) changed", e.body.stored)),
+            Err(_) => problem(format!("the stored predictions of entry {n} (`{}`) are missing", e.body.stored)),
+        }
+        previous = e.entry.clone();
+        ledger.entries.push(e);
+    }
+    if let Some(pin) = expect_head {
+        if ledger.head() != pin {
+            let n = ledger.entries.len() as u64;
+            ledger.problems.push(Problem {
+                entry: n,
+                what: format!(
+                    "the ledger's head is {}, not the pinned {pin}: entries were removed from its end or it was replaced",
+                    ledger.head()
+                ),
+            });
+        }
+    }
+    Ok(ledger)
+}
+
+/// Appends an entry: the stored predictions first, then the ledger rewritten
+/// beside itself and renamed into place, so a crash leaves the old ledger or
+/// the new one.
+///
+/// # Errors
+/// Disk failures.
+pub fn append(dir: &Path, ledger: &Ledger, body: EntryBody, stored_bytes: &[u8]) -> Result<Entry> {
+    let scores = dir.join(SCORES_DIR);
+    std::fs::create_dir_all(&scores).map_err(|e| Error::io(&scores, "cannot create", e))?;
+    let stored_path: PathBuf = dir.join(&body.stored);
+    let _ = std::fs::remove_file(&stored_path);
+    crate::io::write_small(&stored_path, stored_bytes)?;
+    let (entry, line) = body.seal();
+    let path = dir.join(FILE_NAME);
+    debug_assert!(ledger.intact(), "only an intact ledger is appended to");
+    let mut text = match std::fs::read_to_string(&path) {
+        Ok(t) => t,
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => String::new(),
+        Err(e) => return Err(Error::io(&path, "cannot read the ledger", e)),
+    };
+    text.push_str(&line);
+    text.push('\n');
+    let tmp = dir.join(format!(".{FILE_NAME}.cleave-{}", std::process::id()));
+    let _ = std::fs::remove_file(&tmp);
+    crate::io::write_small(&tmp, text.as_bytes())?;
+    std::fs::rename(&tmp, &path).map_err(|e| Error::io(&path, "cannot write the ledger", e))?;
+    Ok(entry)
+}
