@@ -513,6 +513,12 @@ pub fn load_truth(loaded: &LoadedManifest, metric: Option<Metric>) -> Result<(Tr
     let sealed = hints.get(&label).copied().unwrap_or(ColumnType::String);
     let numeric = sealed.is_numeric();
     let metric = metric.unwrap_or(if numeric { Metric::Mse } else { Metric::Accuracy });
+    if !metric.is_regression() && sealed == ColumnType::Float {
+        return Err(Error::Options(format!(
+            "--metric {}: the label `{label}` holds floats; classification metrics need classes (text, booleans or integers)",
+            metric.name()
+        )));
+    }
     if metric.is_regression() && !numeric {
         return Err(Error::Options(format!(
             "--metric {}: the label `{label}` holds {} values, not numbers",

@@ -4,6 +4,7 @@ mod bad_input;
 mod check;
 mod formats;
 mod reference;
+mod score;
 mod split;
 mod structure;
 mod util;

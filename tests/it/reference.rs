@@ -68,3 +68,8 @@ fn palmer_penguins_raw_grouped_by_nest_and_ordered_by_egg_date() {
 fn test_partition_exported_by_pyarrow_is_found_in_full() {
     reference("cross_format");
 }
+
+#[test]
+fn metrics_agree_with_numpy_and_scipy() {
+    reference("metrics");
+}

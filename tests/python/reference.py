@@ -398,6 +398,101 @@ def check_cross_format(binary, work):
     print(f"all {n} test rows found in both exports; train clean")
 
 
+def score(binary, work, *args):
+    r = subprocess.run([binary, "score", *args, "--json"], cwd=work, env=ENV, capture_output=True, text=True)
+    if r.returncode != 0:
+        raise AssertionError(f"score {' '.join(args)} exited {r.returncode}: {r.stderr}")
+    return json.loads(r.stdout)
+
+
+def check_metrics(binary, work):
+    """cleave score against numpy (mse, rmse, mae, r2, accuracy, log-loss, f1 from the confusion
+    counts) and scipy (AUC = Mann-Whitney U / (n1 n0), scipy.stats.mannwhitneyu) on the demo
+    test set, for a regression label, a four-class label and a boolean label."""
+    import numpy as np
+    from scipy.stats import mannwhitneyu
+
+    rng = np.random.default_rng(2026)
+    shutil.copy(os.path.join(FIXTURES, "water-quality.csv"), work)
+    # A boolean label beside the others: bloom = moderate or high.
+    header, rows = read_csv(os.path.join(work, "water-quality.csv"))
+    ci = header.index("bloom_class")
+    with open(os.path.join(work, "wq-bool.csv"), "w", newline="") as fh:
+        w = csv.writer(fh, lineterminator="\n")
+        w.writerow(header + ["bloom"])
+        for r in rows:
+            w.writerow(r + ["true" if r[ci] in ("moderate", "high") else "false"])
+
+    def truth_and_ids(out, label):
+        h, test = read_csv(os.path.join(work, out, "test.csv"))
+        hf, feats = read_csv(os.path.join(work, out, "test.features.csv"))
+        assert label not in hf, "the label-free test file holds no label"
+        assert hf[0] == "row_id" and len({f[0] for f in feats}) == len(feats)
+        return [t[h.index(label)] for t in test], [f[0] for f in feats]
+
+    def write(path, cols, data):
+        with open(os.path.join(work, path), "w", newline="") as fh:
+            w = csv.writer(fh, lineterminator="\n")
+            w.writerow(cols)
+            for r in data:
+                w.writerow([r[0]] + [repr(float(x)) if not isinstance(x, str) else x for x in r[1:]])
+
+    close = lambda a, b: abs(a - b) <= 1e-9 * max(1.0, abs(b))
+    # Regression.
+    cleave(binary, "split", "water-quality.csv", "--out", "reg", "--label", "chlorophyll_ug_l", cwd=work)
+    y, ids = truth_and_ids("reg", "chlorophyll_ug_l")
+    y = np.array([float(v) for v in y])
+    p = y + rng.normal(0, 2.5, len(y))
+    write("reg.csv", ["row_id", "prediction"], [(i, v) for i, v in zip(ids, p)])
+    want = {"mse": np.mean((p - y) ** 2), "rmse": np.sqrt(np.mean((p - y) ** 2)), "mae": np.mean(np.abs(p - y)),
+            "r2": 1 - np.sum((p - y) ** 2) / np.sum((y - y.mean()) ** 2)}
+    for metric, v in want.items():
+        got = score(binary, work, "reg.csv", "--against", "reg", "--metric", metric)["value"]
+        assert close(got, v), (metric, got, v)
+    # Four classes, probabilities.
+    cleave(binary, "split", "water-quality.csv", "--out", "cls", "--label", "bloom_class", cwd=work)
+    y, ids = truth_and_ids("cls", "bloom_class")
+    classes = sorted(set(y))
+    yi = np.array([classes.index(v) for v in y])
+    probs = rng.dirichlet(np.ones(len(classes)), len(y))
+    probs[np.arange(len(y)), yi] += 0.5
+    probs /= probs.sum(axis=1, keepdims=True)
+    write("cls.csv", ["row_id"] + classes, [(i, *row) for i, row in zip(ids, probs)])
+    pred = probs.argmax(axis=1)
+    def f1(c, t, q):
+        tp = np.sum((t == c) & (q == c)); fp = np.sum((t != c) & (q == c)); fn = np.sum((t == c) & (q != c))
+        return 0.0 if tp == 0 else 2 * tp / (2 * tp + fp + fn)
+    present = sorted(set(yi) | set(pred))
+    aucs = []
+    for c in range(len(classes)):
+        pos, neg = probs[yi == c, c], probs[yi != c, c]
+        aucs.append(mannwhitneyu(pos, neg).statistic / (len(pos) * len(neg)))
+    want = {"accuracy": np.mean(pred == yi),
+            "log-loss": -np.mean(np.log(np.clip(probs[np.arange(len(y)), yi], 1e-15, 1 - 1e-15))),
+            "auc": np.mean(aucs),
+            "f1": np.mean([f1(c, yi, pred) for c in present])}
+    for metric, v in want.items():
+        got = score(binary, work, "cls.csv", "--against", "cls", "--metric", metric)["value"]
+        assert close(got, v), (metric, got, v)
+    # A boolean label, a single probability column: positive class `true` by default.
+    cleave(binary, "split", "wq-bool.csv", "--out", "bin", "--label", "bloom", "--key",
+           "station,sample_time,ph,water_temp_c,bloom", cwd=work)
+    y, ids = truth_and_ids("bin", "bloom")
+    yb = np.array([v == "true" for v in y])
+    s = np.clip(0.3 * yb + rng.uniform(0, 0.7, len(y)), 0, 1)
+    write("bin.csv", ["row_id", "prediction"], [(i, v) for i, v in zip(ids, s)])
+    auc = mannwhitneyu(s[yb], s[~yb]).statistic / (yb.sum() * (~yb).sum())
+    got = score(binary, work, "bin.csv", "--against", "bin", "--metric", "auc")
+    assert close(got["value"], auc), (got["value"], auc)
+    write("bin-class.csv", ["row_id", "prediction"], [(i, "true" if v > 0.5 else "false") for i, v in zip(ids, s)])
+    q = s > 0.5
+    tp, fp, fn = np.sum(yb & q), np.sum(~yb & q), np.sum(yb & ~q)
+    got = score(binary, work, "bin-class.csv", "--against", "bin", "--metric", "f1")
+    assert close(got["value"], 2 * tp / (2 * tp + fp + fn)), got
+    assert got["times_scored"] == 2 and "best" not in got, "best needs two submissions with one metric"
+    print("metrics agree with numpy and scipy")
+
+
 def check_penguins_time(binary, work):
     """A grouped, time-ordered split of real data with natural entities and dates: the raw Palmer
     penguins table (Horst, Hill and Gorman 2020, CC0; penguins_raw.csv of the PyPI package
