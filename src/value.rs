@@ -497,8 +497,8 @@ mod tests {
             canonical_f64(v).unwrap().round_significant(6).write(&mut out);
             String::from_utf8(out).unwrap()
         };
-        assert_eq!(r(3.14159265), "314159e-5");
-        assert_eq!(r(2.7182818), "271828e-5");
+        assert_eq!(r(1.23456789), "123457e-5");
+        assert_eq!(r(6.5432101), "654321e-5");
         assert_eq!(r(9.9999996), "1e1");
         assert_eq!(r(1234565.0), "123457e1");
         assert_eq!(r(-0.000123456789), "-123457e-9");

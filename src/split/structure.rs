@@ -424,7 +424,7 @@ pub fn assign_time(times: &[i64], groups: Option<&Groups>, ratios: &Ratios, gap:
                 format!(
                     "the {name} partition's groups all reach past a later partition's start, so keeping groups whole leaves it empty (do the groups span the whole time range?)"
                 )
-            } else if groups.is_some() && !partition.iter().any(|&q| q == p as u8) && dropped_by_gap[p] == 0 {
+            } else if groups.is_some() && !partition.contains(&(p as u8)) && dropped_by_gap[p] == 0 {
                 format!("no group first appears in the {name} period, so keeping groups whole leaves it empty")
             } else {
                 format!("--gap leaves the {name} partition empty: every one of its rows is within the gap")
