@@ -347,6 +347,11 @@ impl GroupSpec {
         GroupSpec { columns: columns.to_vec(), key }
     }
 
+    /// The group columns, in key order.
+    pub fn columns(&self) -> &[String] {
+        &self.columns
+    }
+
     /// The group digest of each row of a batch, appended to `out`.
     ///
     /// # Errors

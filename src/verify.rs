@@ -232,11 +232,17 @@ fn digest_partition(
 ) -> Result<Content> {
     let table = Table::open(path, format, hints)?;
     spec.bind(path, &table.schema())?;
+    // Only the columns the digests and fold counts need.
+    let mut columns = spec.columns();
     if let Some(f) = fold_column {
         table.column_index(f)?;
+        columns.push(f.to_string());
+    }
+    if let (Some(g), true) = (group, is_test) {
+        columns.extend(g.columns().iter().cloned());
     }
     let mut content = Content { rows: Vec::new(), all: Vec::new(), groups: Vec::new(), folds: BTreeMap::new() };
-    let mut batches = table.batches(None, false)?;
+    let mut batches = table.batches(Some(&columns), false)?;
     let mut buf = Vec::new();
     let mut group_first: BTreeMap<[u8; 16], u64> = BTreeMap::new();
     let mut group_digests = Vec::new();

@@ -10,10 +10,6 @@ use crate::cli::Outcome;
 use crate::io::Format;
 use crate::manifest;
 
-fn parse_format(s: &str) -> Result<Format, String> {
-    Format::parse(s).ok_or_else(|| format!("unknown format `{s}` (csv, parquet, arrow, jsonl)"))
-}
-
 /// Check later training files for sealed test rows, near-copies, test groups and test-period rows.
 ///
 /// Exit 0 clean, 1 leaks found (or a kind not checked, without --allow-partial), 2 cannot read or
@@ -41,7 +37,7 @@ pub struct Args {
     #[arg(long, default_value_t = 5, value_name = "N")]
     max_examples: usize,
     /// Format of the checked files when the extension does not say.
-    #[arg(long, value_parser = parse_format)]
+    #[arg(long, value_parser = crate::cli::parse_format)]
     format: Option<Format>,
     /// Print one JSON document instead of text.
     #[arg(long)]

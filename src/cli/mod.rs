@@ -89,6 +89,11 @@ fn install_panic_hook() {
     }));
 }
 
+/// Parses `--format` and `--output-format` values.
+fn parse_format(s: &str) -> Result<crate::io::Format, String> {
+    crate::io::Format::parse(s).ok_or_else(|| format!("unknown format `{s}` (csv, parquet, arrow, jsonl)"))
+}
+
 /// The manifest's creation time: `SOURCE_DATE_EPOCH` when set (so that two
 /// runs can be byte-identical), else now; RFC 3339 in UTC, whole seconds.
 fn creation_time() -> anyhow::Result<String> {

@@ -10,10 +10,6 @@ use crate::ledger::{self, EntryBody, Ledger};
 use crate::manifest;
 use crate::score::{self, Metric, Predictions, Truth};
 
-fn parse_format(s: &str) -> Result<Format, String> {
-    Format::parse(s).ok_or_else(|| format!("unknown format `{s}` (csv, parquet, arrow, jsonl)"))
-}
-
 /// Score predictions for the sealed test set, with a bootstrap interval, and record it in the ledger.
 ///
 /// Predictions: a `row_id` column (from `test.features.*`) and either a `prediction` column or one
@@ -48,7 +44,7 @@ pub struct ScoreArgs {
     #[arg(long, value_name = "HASH")]
     expect_manifest: Option<String>,
     /// Format of the predictions when the extension does not say.
-    #[arg(long, value_parser = parse_format)]
+    #[arg(long, value_parser = crate::cli::parse_format)]
     format: Option<Format>,
     /// Print one JSON document instead of text.
     #[arg(long)]

@@ -9,10 +9,6 @@ use crate::cli::{creation_time, output, Outcome};
 use crate::io::Format;
 use crate::split::{self, FoldCount, Ratios, SplitConfig};
 
-fn parse_format(s: &str) -> Result<Format, String> {
-    Format::parse(s).ok_or_else(|| format!("unknown format `{s}` (csv, parquet, arrow, jsonl)"))
-}
-
 /// Split a table into partitions, digest every row and seal the test partition.
 #[derive(Debug, clap::Args)]
 pub struct Args {
@@ -61,10 +57,10 @@ pub struct Args {
     #[arg(long, value_name = "FILE")]
     digest_key: Option<PathBuf>,
     /// Input format when the extension does not say.
-    #[arg(long, value_parser = parse_format)]
+    #[arg(long, value_parser = crate::cli::parse_format)]
     format: Option<Format>,
     /// Format of the partition files (default: the input's).
-    #[arg(long, value_parser = parse_format)]
+    #[arg(long, value_parser = crate::cli::parse_format)]
     output_format: Option<Format>,
     /// Replace the output folder if it exists.
     #[arg(long)]
