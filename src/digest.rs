@@ -259,15 +259,25 @@ impl BoundSpec {
     /// # Errors
     /// Types that cannot be encoded.
     pub fn row_digests(&self, batch: &RecordBatch, out: &mut Vec<RowDigest>) -> Result<()> {
+        let rows: Vec<usize> = (0..batch.num_rows()).collect();
+        self.row_digests_of(batch, &rows, out)
+    }
+
+    /// The row digest of the given rows of a batch, appended to `out` in
+    /// that order.
+    ///
+    /// # Errors
+    /// Types that cannot be encoded.
+    pub fn row_digests_of(&self, batch: &RecordBatch, rows: &[usize], out: &mut Vec<RowDigest>) -> Result<()> {
         let encoders = self.encoders(batch)?;
         use rayon::prelude::*;
-        let n = batch.num_rows();
-        let chunks: Vec<Vec<RowDigest>> = (0..n.div_ceil(4096))
-            .into_par_iter()
-            .map(|c| {
+        let chunks: Vec<Vec<RowDigest>> = rows
+            .par_chunks(4096)
+            .map(|chunk| {
                 let mut buf = Vec::with_capacity(256);
-                (c * 4096..((c + 1) * 4096).min(n))
-                    .map(|row| {
+                chunk
+                    .iter()
+                    .map(|&row| {
                         buf.clear();
                         for e in &encoders {
                             e.write(row, &mut buf, false);
@@ -277,7 +287,7 @@ impl BoundSpec {
                     .collect()
             })
             .collect();
-        out.reserve(n);
+        out.reserve(rows.len());
         for c in chunks {
             out.extend(c);
         }

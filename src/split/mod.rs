@@ -482,15 +482,13 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             return Err(Error::malformed(&cfg.input, "changed while being read (more rows than in the first pass)"));
         }
         let assigned = &partition[start..start + n];
-        batch_digests.clear();
-        spec.bind(&cfg.input, &batch.data.schema())?.row_digests(&batch.data, &mut batch_digests)?;
+        let bound = spec.bind(&cfg.input, &batch.data.schema())?;
         let mut indices: Vec<Vec<u32>> = vec![Vec::new(); k];
-        for (i, (&p, d)) in assigned.iter().zip(&batch_digests).enumerate() {
+        for (i, &p) in assigned.iter().enumerate() {
             if p == DROPPED {
                 continue;
             }
             indices[p as usize].push(i as u32);
-            digests[p as usize].push(*d);
             if let Some((times, _)) = &facts.times {
                 let t = times[start + i];
                 let r = time_ranges[p as usize].get_or_insert((t, t));
@@ -498,9 +496,18 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
                 r.1 = r.1.max(t);
             }
         }
+        // Each row is encoded once: test rows yield all their digests, the
+        // others their row digest.
         let test_rows: Vec<usize> = indices[test_index].iter().map(|&i| i as usize).collect();
         test_digests.clear();
-        spec.bind(&cfg.input, &batch.data.schema())?.all_digests(&batch.data, &test_rows, &mut test_digests)?;
+        bound.all_digests(&batch.data, &test_rows, &mut test_digests)?;
+        digests[test_index].extend(test_digests.iter().map(|d| d.row));
+        for p in 0..test_index {
+            let rows: Vec<usize> = indices[p].iter().map(|&i| i as usize).collect();
+            batch_digests.clear();
+            bound.row_digests_of(&batch.data, &rows, &mut batch_digests)?;
+            digests[p].extend_from_slice(&batch_digests);
+        }
         if let Some(gs) = &group_spec {
             group_digests.clear();
             gs.digests(&cfg.input, &batch.data, &mut group_digests)?;
