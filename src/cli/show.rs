@@ -166,6 +166,12 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
             if f.shareable { "shareable with the modelling team" } else { "evaluator only (covers the labels)" }
         ));
     }
+    if let Some(h) = &m.handoff {
+        t.push_str(&format!(
+            "  {:<18} {:>10} rows     label-free test rows with `{}`, for the modelling team\n",
+            h.file, h.rows, h.row_id
+        ));
+    }
     output::print(&t)?;
     Ok(Outcome::Ok)
 }

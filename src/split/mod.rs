@@ -596,6 +596,19 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     }
     let loo = matches!(cfg.folds, Some((FoldCount::LeaveOneOut, _)));
     let mut records = Vec::new();
+    // Identical rows in two partitions: a later check of the train file
+    // would flag them, and they are a leak from the start.
+    for d in digests.iter_mut() {
+        d.sort_unstable();
+    }
+    let shared = rows_shared_with_test(&digests);
+    if shared > 0 {
+        warnings.push(format!(
+            "{shared} test row(s) equal a row of another partition (duplicate rows in the input): \
+             they leak from the start, and a check of that partition will flag them; \
+             deduplicate the input or --group by an identifying column"
+        ));
+    }
     for (p, ((file, w), mut d)) in writers.into_iter().zip(digests).enumerate() {
         let summary = w.finish()?;
         let strata_counts: BTreeMap<String, u64> = if stratify.is_empty() {
@@ -766,6 +779,13 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let mut manifest = manifest;
     manifest.checksum = Some(checksum.clone());
     Ok(SplitOutcome { manifest, manifest_checksum: checksum, warnings, dropped_by_gap, dropped_by_group })
+}
+
+/// Test rows whose row digest also occurs in another partition (each
+/// partition's digests sorted).
+fn rows_shared_with_test(digests: &[Vec<RowDigest>]) -> u64 {
+    let (test, others) = digests.split_last().expect("at least two partitions");
+    test.iter().filter(|d| others.iter().any(|o| o.binary_search(d).is_ok())).count() as u64
 }
 
 /// Writes the seal files of the test partition: rows, features and loose

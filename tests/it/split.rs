@@ -244,3 +244,19 @@ fn outputs_do_not_depend_on_the_thread_count() {
     }
     assert_eq!(seen[0], seen[1]);
 }
+
+#[test]
+fn duplicate_rows_across_partitions_are_reported() {
+    let t = Test::new();
+    let mut csv = String::from("id,v\n");
+    for i in 0..200 {
+        csv.push_str(&format!("{},{}\n", i % 150, i % 150));
+    }
+    t.write("dups.csv", csv);
+    let r = t.ok(&["split", "dups.csv", "--out", "out", "--json"]);
+    let warnings = r.json()["warnings"].as_array().unwrap().clone();
+    assert!(warnings.iter().any(|w| w.as_str().unwrap().contains("equal a row of another partition")), "{warnings:?}");
+    // Grouping by the identifying column keeps duplicates together: no warning.
+    let r = t.ok(&["split", "dups.csv", "--out", "out2", "--group", "id", "--json"]);
+    assert!(r.json()["warnings"].as_array().unwrap().is_empty());
+}
