@@ -2,7 +2,6 @@
 
 use std::path::PathBuf;
 
-use anyhow::Context;
 use serde_json::json;
 
 use crate::cli::{creation_time, output, Outcome};
@@ -94,7 +93,8 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         digest_key: args.digest_key.as_deref().map(crate::digest::DigestKey::read).transpose()?,
         created: creation_time()?,
     };
-    let outcome = split::run(&cfg).with_context(|| format!("cannot split `{}`", args.input.display()))?;
+    // Library errors name the file, line and column themselves.
+    let outcome = split::run(&cfg)?;
     for w in &outcome.warnings {
         output::warn(w);
     }

@@ -9,6 +9,7 @@
 //! naming the file.
 
 pub mod csv;
+mod jsonl;
 mod write;
 
 use std::collections::BTreeMap;
@@ -270,7 +271,10 @@ impl Table {
                 })?;
                 (schema, Vec::new())
             }
-            Format::Jsonl => (infer_jsonl(path, hints)?, Vec::new()),
+            Format::Jsonl => {
+                jsonl::validate(path)?;
+                (infer_jsonl(path, hints)?, Vec::new())
+            }
         };
         let table = Table { path: path.to_path_buf(), format, schema, csv_types };
         table.check_names()?;

@@ -141,3 +141,24 @@ fn csv_values_that_do_not_fit_the_sealed_type_name_line_and_column() {
     assert_eq!(r.code, 1);
     assert!(r.stdout.contains("line 3, column `v`: `oops` is not a number"), "{}", r.stdout);
 }
+
+/// JSON Lines: a repeated key, an integer beyond 64 bits, NaN, a lone
+/// surrogate, a non-object line and a blank line are refused with their line
+/// (matrix rows 28 to 31 of the reliability guide), never read silently.
+#[test]
+fn malformed_json_lines_are_named_by_line() {
+    let ok = "{\"a\":1,\"b\":2}\n";
+    refuses("dup.jsonl", format!("{ok}{{\"a\":1,\"a\":2,\"b\":3}}\n").as_bytes(), &[], &["line 2", "`a` appears twice"]);
+    refuses(
+        "big.jsonl",
+        format!("{ok}{{\"a\":123456789012345678901234,\"b\":1}}\n").as_bytes(),
+        &[],
+        &["line 2", "does not fit in 64 bits"],
+    );
+    refuses("nan.jsonl", format!("{ok}{{\"a\":NaN,\"b\":1}}\n").as_bytes(), &[], &["line 2", "not valid JSON"]);
+    refuses("inf.jsonl", format!("{ok}{{\"a\":1e400,\"b\":1}}\n").as_bytes(), &[], &["line 2", "not valid JSON"]);
+    refuses("sur.jsonl", format!("{ok}{{\"a\":\"\\ud800\",\"b\":1}}\n").as_bytes(), &[], &["line 2", "not valid JSON"]);
+    refuses("arr.jsonl", format!("{ok}[1,2]\n").as_bytes(), &[], &["line 2", "not a JSON object"]);
+    refuses("blank.jsonl", format!("{ok}\n{ok}").as_bytes(), &[], &["line 2", "blank"]);
+    refuses("cut.jsonl", format!("{ok}{{\"a\":1,").as_bytes(), &[], &["line 2", "not valid JSON"]);
+}
