@@ -43,7 +43,7 @@ use arrow_array::{Array, ArrayRef, RecordBatch};
 use arrow_schema::{DataType, Schema, TimeUnit};
 
 use crate::error::{Error, Result};
-use crate::io::{require_supported, ColumnType};
+use crate::io::require_supported;
 use crate::value;
 
 /// Name of the row encoding, recorded in the manifest.
@@ -689,11 +689,6 @@ pub fn write_timestamp(secs: i64, nanos: u32, zoned: bool, out: &mut Vec<u8>) {
     if zoned {
         out.push(b'Z');
     }
-}
-
-/// The type a column of `schema` has by meaning, if cleave can digest it.
-pub fn column_type(schema: &Schema, name: &str) -> Option<ColumnType> {
-    schema.field_with_name(name).ok().and_then(|f| ColumnType::of(f.data_type()))
 }
 
 #[cfg(test)]

@@ -47,9 +47,6 @@ pub enum Format {
 }
 
 impl Format {
-    /// All formats, for messages.
-    pub const ALL: [Format; 4] = [Format::Csv, Format::Parquet, Format::Arrow, Format::Jsonl];
-
     /// The format's name as used on the command line and in the manifest.
     pub fn name(self) -> &'static str {
         match self {
@@ -129,6 +126,9 @@ pub enum ColumnType {
     LocalTimestamp,
     /// A column with no values at all (every value null).
     Null,
+    /// A type cleave does not digest (lists, structs, ...): carried along in
+    /// the partitions, never part of a key.
+    Other,
 }
 
 impl ColumnType {
@@ -172,6 +172,7 @@ impl ColumnType {
             ColumnType::Timestamp => "timestamp",
             ColumnType::LocalTimestamp => "local_timestamp",
             ColumnType::Null => "null",
+            ColumnType::Other => "other",
         }
     }
 
@@ -383,11 +384,7 @@ impl Table {
         Ok(reader.header_line())
     }
 
-    /// Each column's type by meaning.
-    ///
-    /// # Errors
-    /// [`Error::UnsupportedType`] for a column cleave cannot digest, when
-    /// `strict`; otherwise such columns are left out.
+    /// Each column's type by meaning (`None` for types cleave cannot digest).
     pub fn column_types(&self) -> Vec<(String, Option<ColumnType>)> {
         self.schema.fields().iter().map(|f| (f.name().clone(), ColumnType::of(f.data_type()))).collect()
     }

@@ -142,11 +142,6 @@ impl PartitionWriter {
         }
     }
 
-    /// Whether this writer takes raw CSV records.
-    pub fn is_raw(&self) -> bool {
-        matches!(self.inner, Inner::CsvRaw(_))
-    }
-
     /// Finishes the file, syncs it to disk and returns its size and BLAKE3.
     ///
     /// # Errors

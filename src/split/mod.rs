@@ -729,7 +729,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             columns: table
                 .column_types()
                 .into_iter()
-                .map(|(name, t)| ColumnRecord { name, column_type: t.unwrap_or(ColumnType::Binary) })
+                .map(|(name, t)| ColumnRecord { name, column_type: t.unwrap_or(ColumnType::Other) })
                 .collect(),
         },
         options: SplitOptionsRecord {
