@@ -643,11 +643,21 @@ fn civil_from_days(z: i64) -> (i64, u32, u32) {
 }
 
 fn push_padded(out: &mut Vec<u8>, v: u32, width: usize) {
-    let s = v.to_string();
-    for _ in s.len()..width {
+    let mut digits = [0u8; 10];
+    let mut n = 0;
+    let mut x = v;
+    loop {
+        digits[n] = b'0' + (x % 10) as u8;
+        n += 1;
+        x /= 10;
+        if x == 0 {
+            break;
+        }
+    }
+    for _ in n..width {
         out.push(b'0');
     }
-    out.extend_from_slice(s.as_bytes());
+    out.extend(digits[..n].iter().rev());
 }
 
 fn write_year(y: i64, out: &mut Vec<u8>) {
@@ -679,12 +689,15 @@ pub fn write_timestamp(secs: i64, nanos: u32, zoned: bool, out: &mut Vec<u8>) {
     out.push(b':');
     push_padded(out, rem % 60, 2);
     if nanos > 0 {
-        let mut frac = format!("{nanos:09}");
-        while frac.ends_with('0') {
-            frac.pop();
+        let mut frac = [0u8; 9];
+        let mut x = nanos;
+        for d in frac.iter_mut().rev() {
+            *d = b'0' + (x % 10) as u8;
+            x /= 10;
         }
+        let end = frac.iter().rposition(|&d| d != b'0').expect("nanos > 0") + 1;
         out.push(b'.');
-        out.extend_from_slice(frac.as_bytes());
+        out.extend_from_slice(&frac[..end]);
     }
     if zoned {
         out.push(b'Z');
