@@ -775,7 +775,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     io::write_small(&staging.path.join(manifest::FILE_NAME), text.as_bytes())?;
     let checksum = text.trim_end().rsplit(' ').next().expect("checksum line").to_string();
     sync_dir(&staging.path)?;
-    commit(staging, &cfg.out)?;
+    commit(staging, &cfg.out, cfg.force)?;
     let mut manifest = manifest;
     manifest.checksum = Some(checksum.clone());
     Ok(SplitOutcome { manifest, manifest_checksum: checksum, warnings, dropped_by_gap, dropped_by_group })
@@ -840,10 +840,11 @@ fn sync_dir(path: &Path) -> Result<()> {
 }
 
 /// Renames the staging folder into place, replacing an existing folder only
-/// after the new one is complete.
-fn commit(mut staging: Staging, out: &Path) -> Result<()> {
+/// with `force` and only after the new one is complete. Without `force` the
+/// rename itself refuses a folder that another run filled in the meantime.
+fn commit(mut staging: Staging, out: &Path, force: bool) -> Result<()> {
     let old = sibling(out, "old");
-    let replaced = out.exists();
+    let replaced = force && out.exists();
     if replaced {
         std::fs::rename(out, &old).map_err(|e| Error::io(out, "cannot move the old folder aside", e))?;
     }
