@@ -72,12 +72,13 @@ impl VerifyReport {
 }
 
 /// Verifies the folder or manifest at `path`; `pin` is a manifest checksum
-/// the caller trusts.
+/// the caller trusts. With `shareable`, the folder is the modelling team's
+/// copy: the labelled test partition and the row digests are not expected.
 ///
 /// # Errors
 /// Only when the manifest cannot be read or parsed; everything else is a
 /// [`Problem`] in the report.
-pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>) -> Result<VerifyReport> {
+pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, shareable: bool) -> Result<VerifyReport> {
     let loaded = manifest::load(path)?;
     let m = &loaded.manifest;
     check_key(&loaded, key)?;
@@ -111,6 +112,10 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>) -> Result
     let mut test_digests: Option<(Vec<(RowDigests, u64)>, Vec<crate::seal::SealRecord>)> = None;
     let group_spec = (!m.options.group.is_empty()).then(|| GroupSpec::new(&m.options.group, key));
     for part in &m.partitions {
+        // The modelling team's copy holds no labelled test rows.
+        if shareable && part.name == Partition::Test {
+            continue;
+        }
         let file = loaded.file(&part.file);
         files_checked += 1;
         let summary = match io::hash_file(&file) {
@@ -168,6 +173,9 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>) -> Result
         }
     }
     for sf in &m.seal.files {
+        if shareable && !sf.shareable {
+            continue;
+        }
         files_checked += 1;
         let file = loaded.file(&sf.file);
         let bytes = match std::fs::read(&file) {

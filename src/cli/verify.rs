@@ -18,6 +18,9 @@ pub struct Args {
     /// The digest key of a keyed seal, to re-digest the rows (without it only file checksums are checked).
     #[arg(long, value_name = "FILE")]
     digest_key: Option<PathBuf>,
+    /// The folder is the modelling team's copy: skip the labelled test partition and the row digests.
+    #[arg(long)]
+    shareable: bool,
     /// Print one JSON document instead of text.
     #[arg(long)]
     json: bool,
@@ -26,7 +29,7 @@ pub struct Args {
 pub fn run(args: Args) -> anyhow::Result<Outcome> {
     let pin = args.expect_manifest.as_deref().map(manifest::parse_pin).transpose()?;
     let key = args.digest_key.as_deref().map(crate::digest::DigestKey::read).transpose()?;
-    let report = crate::verify::verify(&args.path, pin.as_deref(), key.as_ref())?;
+    let report = crate::verify::verify(&args.path, pin.as_deref(), key.as_ref(), args.shareable)?;
     let shown = output::sanitize(&args.path.display().to_string());
     if args.json {
         output::json(&json!({

@@ -216,3 +216,19 @@ fn regression_scores_and_a_label_that_does_not_fit() {
     assert!((j["value"].as_f64().unwrap() - mse).abs() < 1e-9);
     t.run(&["score", "p.csv", "--against", "out", "--metric", "auc"]).fails_with(&["holds floats", "need classes"]);
 }
+
+#[test]
+fn the_modelling_teams_copy_verifies_and_checks_without_the_labelled_files() {
+    let t = sealed();
+    std::fs::create_dir(t.path("modelling")).unwrap();
+    for f in ["train.csv", "validation.csv", "test.features.csv", "manifest.yaml", "seal.features.bin", "seal.loose.bin"] {
+        std::fs::copy(t.path(&format!("out/{f}")), t.path(&format!("modelling/{f}"))).unwrap();
+    }
+    assert_eq!(t.run(&["verify", "modelling"]).code, 1, "without --shareable the missing files are problems");
+    t.ok(&["verify", "modelling", "--shareable"]);
+    t.ok(&["check", "modelling/train.csv", "--against", "modelling"]);
+    // The label-free test rows are found by features, not by rows.
+    let j = t.run(&["check", "modelling/test.features.csv", "--against", "modelling", "--json"]).json();
+    assert_eq!(j["findings"]["features"]["count"], j["rows_checked"]);
+    assert!(j["findings"].get("row").is_none());
+}
