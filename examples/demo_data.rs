@@ -4,7 +4,7 @@
 //!
 //! ```text
 //! cargo run --release --example demo_data -- --rows 3000 fixtures/water-quality.csv
-//! cargo run --release --example demo_data -- --rows 10000000 /tmp/wq-10m.parquet
+//! cargo run --release --example demo_data -- --rows 10000000 bench-data/wq-10m.parquet
 //! ```
 //!
 //! The format follows the extension (csv, parquet, arrow, jsonl). Rows are
