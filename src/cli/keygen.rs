@@ -16,6 +16,9 @@ use crate::digest::DigestKey;
 pub struct Args {
     /// The key file to create; an existing file is never overwritten.
     file: PathBuf,
+    /// Print one JSON document instead of text.
+    #[arg(long)]
+    json: bool,
 }
 
 pub fn run(args: Args) -> anyhow::Result<Outcome> {
@@ -33,10 +36,18 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
     file.write_all(key.to_file_text().as_bytes())
         .and_then(|_| file.sync_all())
         .with_context(|| format!("`{}`: cannot write the key", args.file.display()))?;
-    output::print(&format!(
-        "wrote a 256-bit digest key to `{}` (fingerprint {})\n",
-        output::sanitize(&args.file.display().to_string()),
-        key.fingerprint()
-    ))?;
+    if args.json {
+        output::json(&serde_json::json!({
+            "schema_version": 1,
+            "file": args.file.display().to_string(),
+            "fingerprint": key.fingerprint(),
+        }))?;
+    } else {
+        output::print(&format!(
+            "wrote a 256-bit digest key to `{}` (fingerprint {})\n",
+            output::sanitize(&args.file.display().to_string()),
+            key.fingerprint()
+        ))?;
+    }
     Ok(Outcome::Ok)
 }

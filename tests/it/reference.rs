@@ -55,7 +55,7 @@ fn pyarrow_parquet_gives_the_same_split_and_reads_partitions_back() {
 }
 
 #[test]
-fn manifests_validate_against_the_schema() {
+fn manifests_and_json_reports_validate_against_their_schemas() {
     reference("schema");
 }
 

@@ -341,7 +341,8 @@ def check_pyarrow(binary, work):
 
 
 def check_schema(binary, work):
-    """Manifests of several kinds validate against schemas/manifest.schema.json."""
+    """Manifests of several kinds validate against schemas/manifest.schema.json, and every
+    command's --json document against its own schema (jsonschema, Draft 2020-12)."""
     with open(os.path.join(ROOT, "schemas", "manifest.schema.json")) as fh:
         schema = json.load(fh)
     jsonschema.Draft202012Validator.check_schema(schema)
@@ -360,6 +361,34 @@ def check_schema(binary, work):
         m = manifest(os.path.join(work, f"o{i}"))
         errors = sorted(validator.iter_errors(m), key=str)
         assert not errors, [e.message for e in errors]
+    # Every command's --json document against its schema in schemas/.
+    def validate(name, doc):
+        with open(os.path.join(ROOT, "schemas", f"{name}.schema.json")) as fh:
+            sch = json.load(fh)
+        jsonschema.Draft202012Validator.check_schema(sch)
+        errs = [e.message for e in jsonschema.Draft202012Validator(sch).iter_errors(doc)]
+        assert not errs, (name, errs)
+
+    def run_json(*args, ok=(0,)):
+        r = subprocess.run([binary, *args, "--json"], cwd=work, env=ENV, capture_output=True, text=True)
+        assert r.returncode in ok, (args, r.returncode, r.stderr)
+        return json.loads(r.stdout)
+
+    validate("split", run_json("split", "water-quality.csv", "--out", "j", "--label", "bloom_class", "--group", "station"))
+    validate("verify", run_json("verify", "j"))
+    validate("check", run_json("check", "j/test.csv", "j/train.csv", "--against", "j", ok=(1,)))
+    h, feats = read_csv(os.path.join(work, "j", "test.features.csv"))
+    with open(os.path.join(work, "p.csv"), "w", newline="") as fh:
+        w = csv.writer(fh, lineterminator="\n")
+        w.writerow(["row_id", "prediction"])
+        for r in feats:
+            w.writerow([r[0], "low"])
+    validate("score", run_json("score", "p.csv", "--against", "j", "--resamples", "200"))
+    second = run_json("score", "p.csv", "--against", "j", "--resamples", "200", "--name", "again")
+    assert "best" in second
+    validate("score", second)
+    validate("ledger", run_json("ledger", "j"))
+    validate("keygen", run_json("keygen", "k.hex"))
     # And the schema is not vacuous: a broken manifest fails it.
     m["partitions"][0]["rows"] = -1
     assert list(validator.iter_errors(m)), "a negative row count must fail the schema"
