@@ -126,6 +126,43 @@ impl Drop for Staging {
     }
 }
 
+/// An advisory lock on the output folder for the length of a split, so that
+/// two splits into one folder cannot interleave. The kernel releases it if
+/// the process dies; the lock file is removed when the split ends.
+struct OutputLock {
+    path: PathBuf,
+    _file: std::fs::File,
+}
+
+impl OutputLock {
+    fn take(out: &Path) -> Result<OutputLock> {
+        let name = out.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| "out".into());
+        let parent = out.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
+        let path = parent.join(format!(".{name}.cleave-lock"));
+        let file = std::fs::File::options()
+            .create(true)
+            .truncate(false)
+            .write(true)
+            .open(&path)
+            .map_err(|e| Error::io(&path, "cannot create the lock file", e))?;
+        match file.try_lock() {
+            Ok(()) => Ok(OutputLock { path, _file: file }),
+            Err(std::fs::TryLockError::WouldBlock) => Err(Error::Options(format!(
+                "another split is writing `{}` right now (lock `{}`)",
+                out.display(),
+                path.display()
+            ))),
+            Err(std::fs::TryLockError::Error(e)) => Err(Error::io(&path, "cannot lock", e)),
+        }
+    }
+}
+
+impl Drop for OutputLock {
+    fn drop(&mut self) {
+        let _ = std::fs::remove_file(&self.path);
+    }
+}
+
 fn sibling(out: &Path, tag: &str) -> PathBuf {
     let name = out.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| "out".into());
     let parent = out.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
@@ -307,6 +344,7 @@ fn append_csv_field(record: &[u8], value: &str, out: &mut Vec<u8>) {
 pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     check_combinations(cfg)?;
     check_output(cfg)?;
+    let _lock = OutputLock::take(&cfg.out)?;
     let format = Format::resolve(&cfg.input, cfg.format)?;
     let output_format = cfg.output_format.unwrap_or(format);
     let table = Table::open(&cfg.input, format, &TypeHints::new())?;

@@ -162,3 +162,18 @@ fn malformed_json_lines_are_named_by_line() {
     refuses("blank.jsonl", format!("{ok}\n{ok}").as_bytes(), &[], &["line 2", "blank"]);
     refuses("cut.jsonl", format!("{ok}{{\"a\":1,").as_bytes(), &[], &["line 2", "not valid JSON"]);
 }
+
+#[test]
+fn a_split_into_a_folder_another_split_is_writing_is_refused() {
+    let t = Test::new();
+    t.demo();
+    // Another run holds the lock beside the target.
+    let lock = std::fs::File::create(t.path(".out.cleave-lock")).unwrap();
+    lock.lock().unwrap();
+    t.run(&["split", "water-quality.csv", "--out", "out"]).fails_with(&["another split is writing `out`"]);
+    assert!(!t.path("out").exists());
+    lock.unlock().unwrap();
+    drop(lock);
+    t.ok(&["split", "water-quality.csv", "--out", "out"]);
+    assert!(!t.path(".out.cleave-lock").exists(), "the lock file goes when the split ends");
+}
