@@ -398,8 +398,7 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
     let mut distinct_groups: HashSet<RowDigest> = HashSet::new();
     let mut rows_checked = 0u64;
     if !needed.is_empty() {
-        let projection = if needed.is_empty() { None } else { Some(needed.as_slice()) };
-        let mut batches = table.batches(projection, false)?;
+        let mut batches = table.batches(Some(needed.as_slice()), false)?;
         let mut digests = Vec::new();
         let mut group_digests = Vec::new();
         let mut times = Vec::new();
