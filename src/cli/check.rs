@@ -44,23 +44,24 @@ pub struct Args {
     json: bool,
 }
 
+fn example_json(e: &check::Example, file: Option<&std::path::Path>) -> Value {
+    let mut v = json!({"row": e.row});
+    if let Some(f) = file {
+        v["file"] = json!(f.display().to_string());
+    }
+    if let Some(l) = e.line {
+        v["line"] = json!(l);
+    }
+    if let Some(t) = e.test_row {
+        v["test_row"] = json!(t);
+    }
+    v
+}
+
 fn finding_json(r: &FileReport, kind: Kind) -> Value {
     match r.findings.get(&kind) {
         Some(f) => {
-            let examples: Vec<Value> = f
-                .examples
-                .iter()
-                .map(|e| {
-                    let mut v = json!({"row": e.row});
-                    if let Some(l) = e.line {
-                        v["line"] = json!(l);
-                    }
-                    if let Some(t) = e.test_row {
-                        v["test_row"] = json!(t);
-                    }
-                    v
-                })
-                .collect();
+            let examples: Vec<Value> = f.examples.iter().map(|e| example_json(e, None)).collect();
             let mut v = json!({"count": f.count, "examples": examples});
             if let Some(d) = f.distinct {
                 v["distinct"] = json!(d);
@@ -155,16 +156,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
             let examples: Vec<Value> = per
                 .iter()
                 .flat_map(|(r, f)| {
-                    f.examples.iter().map(move |e| {
-                        let mut v = json!({"row": e.row, "file": r.file.display().to_string()});
-                        if let Some(l) = e.line {
-                            v["line"] = json!(l);
-                        }
-                        if let Some(t) = e.test_row {
-                            v["test_row"] = json!(t);
-                        }
-                        v
-                    })
+                    f.examples.iter().map(move |e| example_json(e, Some(&r.file)))
                 })
                 .take(args.max_examples)
                 .collect();

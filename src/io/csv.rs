@@ -349,18 +349,23 @@ impl Candidates {
 /// Infers each column's type over the whole file, checking its structure on
 /// the way: an inference pass that succeeds means the file is well-formed.
 ///
-/// Columns listed in `known` take that type without inference.
+/// Columns listed in `known` take that type without inference; when every
+/// column is known, only the header is read (the reading pass checks the rows).
 ///
 /// # Errors
 /// The first structural problem, with its line.
-pub fn infer(path: &Path, known: &dyn Fn(&str) -> Option<ColumnType>) -> Result<(Vec<String>, Vec<ColumnType>, u64)> {
+pub fn infer(path: &Path, known: &dyn Fn(&str) -> Option<ColumnType>) -> Result<(Vec<String>, Vec<ColumnType>)> {
     let mut tok = Tokenizer::new(path, open(path)?, false);
     let names = read_header(&mut tok)?;
     let width = names.len();
     let fixed: Vec<Option<ColumnType>> = names.iter().map(|n| known(n)).collect();
+    if fixed.iter().all(Option::is_some) {
+        // Every type is known (a partition re-read with the sealed schema):
+        // no scan; the reading pass checks the structure as it goes.
+        return Ok((names, fixed.into_iter().map(|t| t.expect("all known")).collect()));
+    }
     let mut cands = vec![Candidates::ALL; width];
     let mut rec = Record::default();
-    let mut rows = 0u64;
     while tok.next_record(&mut rec)? {
         check_width(&tok, &rec, width)?;
         for i in 0..width {
@@ -369,10 +374,9 @@ pub fn infer(path: &Path, known: &dyn Fn(&str) -> Option<ColumnType>) -> Result<
                 cands[i].observe(text);
             }
         }
-        rows += 1;
     }
     let types = fixed.iter().zip(&cands).map(|(f, c)| f.unwrap_or_else(|| c.resolve())).collect();
-    Ok((names, types, rows))
+    Ok((names, types))
 }
 
 /// The Arrow schema cleave uses for CSV columns of the given types.

@@ -249,7 +249,7 @@ impl Table {
         }
         let (schema, csv_types) = match format {
             Format::Csv => {
-                let (names, types, _) = csv::infer(path, &|name| hints.get(name).copied())?;
+                let (names, types) = csv::infer(path, &|name| hints.get(name).copied())?;
                 (csv::schema_for(&names, &types), types)
             }
             Format::Parquet => {

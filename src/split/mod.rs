@@ -455,27 +455,26 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     std::fs::create_dir(&staging.path).map_err(|e| Error::io(&staging.path, "cannot create", e))?;
     let raw_csv = format == Format::Csv && output_format == Format::Csv;
     let fold_schema = with_fold_column(&schema, &cfg.fold_column);
+    // Read once for every writer: the CSV header, the input's Parquet codec.
+    let csv_header = if raw_csv { Some(table.csv_header()?) } else { None };
+    let compression = if output_format == Format::Parquet && format == Format::Parquet {
+        io::parquet_compression(&cfg.input)
+    } else {
+        None
+    };
     let mut writers = Vec::new();
     for (i, p) in partitions.iter().enumerate() {
         let file = format!("{}.{}", p.name(), output_format.extension());
         let has_folds = folds.is_some() && i < test_index;
-        let header = if raw_csv {
-            let h = table.csv_header()?;
-            Some(if has_folds {
+        let header = csv_header.as_ref().map(|h| {
+            if has_folds {
                 let mut out = Vec::new();
-                append_csv_field(&h, &cfg.fold_column, &mut out);
+                append_csv_field(h, &cfg.fold_column, &mut out);
                 out
             } else {
-                h
-            })
-        } else {
-            None
-        };
-        let compression = if output_format == Format::Parquet && format == Format::Parquet {
-            io::parquet_compression(&cfg.input)
-        } else {
-            None
-        };
+                h.clone()
+            }
+        });
         let target_schema = if has_folds { &fold_schema } else { &schema };
         let w = PartitionWriter::create(&staging.path.join(&file), output_format, target_schema, header.as_deref(), compression)?;
         writers.push((file, w));
@@ -494,11 +493,6 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         fields.extend(keep.iter().map(|&i| schema.field(i).clone()));
         let hschema: SchemaRef = Arc::new(Schema::new_with_metadata(fields, schema.metadata().clone()));
         let file = format!("test.features.{}", output_format.extension());
-        let compression = if output_format == Format::Parquet && format == Format::Parquet {
-            io::parquet_compression(&cfg.input)
-        } else {
-            None
-        };
         let w = PartitionWriter::create(&staging.path.join(&file), output_format, &hschema, None, compression)?;
         handoff = Some((file, w, keep, hschema, 0u64));
     }
@@ -906,8 +900,6 @@ fn commit(mut staging: Staging, out: &Path, force: bool) -> Result<()> {
 pub struct Plan {
     /// Partition index (into the ratios' partitions) of every row.
     pub partition: Vec<u8>,
-    /// Rows per partition, per stratum.
-    pub counts: Vec<Vec<u64>>,
 }
 
 /// Decides every row's partition: strata in label order, each shared out by
@@ -932,7 +924,6 @@ pub fn assign(strata: &Strata, ratios: &Ratios, seed: u64) -> Plan {
     let mut rng = SplitRng::new(seed);
     let mut done = vec![0u64; ratios.partitions().len()];
     let mut partition = vec![0u8; strata.row_stratum.len()];
-    let mut counts = Vec::with_capacity(n_strata);
     for s in 0..n_strata {
         let rows = &mut grouped[offsets[s]..offsets[s + 1]];
         let c = ratios.allocate(rows.len() as u64, &mut done);
@@ -944,9 +935,8 @@ pub fn assign(strata: &Strata, ratios: &Ratios, seed: u64) -> Plan {
             }
             at += k as usize;
         }
-        counts.push(c);
     }
-    Plan { partition, counts }
+    Plan { partition }
 }
 
 #[cfg(test)]
@@ -986,7 +976,7 @@ mod tests {
                         got[plan.partition[row] as usize] += 1;
                     }
                 }
-                prop_assert_eq!(&got, &plan.counts[s]);
+                prop_assert_eq!(&got, &tally(&strata, &plan.partition, ratios.partitions().len())[s]);
                 for (p, &c) in got.iter().enumerate() {
                     let exact = n as f64 * ratios.share(p);
                     prop_assert!((c as f64 - exact).abs() < 1.0, "stratum {} partition {}: {} vs {}", s, p, c, exact);
