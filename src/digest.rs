@@ -39,7 +39,8 @@ use arrow_array::types::{
     Date32Type, Decimal128Type, Float32Type, Float64Type, Int64Type, TimestampMicrosecondType,
     TimestampMillisecondType, TimestampNanosecondType, TimestampSecondType, UInt64Type,
 };
-use arrow_array::{Array, ArrayRef, RecordBatch};
+use arrow_array::{Array, ArrayRef, BinaryArray, BooleanArray, RecordBatch, StringArray};
+use arrow_buffer::{NullBuffer, ScalarBuffer};
 use arrow_schema::{DataType, Schema, TimeUnit};
 
 use crate::error::{Error, Result};
@@ -377,19 +378,33 @@ impl GroupSpec {
             })?;
             encoders.push(Encoder::new(batch.column(i), name)?);
         }
-        let mut buf = Vec::with_capacity(64);
-        for row in 0..batch.num_rows() {
-            buf.clear();
-            for e in &encoders {
-                e.write(row, &mut buf, false);
-            }
-            out.push(truncate(blake3::keyed_hash(&self.key, &buf)));
+        use rayon::prelude::*;
+        let rows: Vec<usize> = (0..batch.num_rows()).collect();
+        let chunks: Vec<Vec<RowDigest>> = rows
+            .par_chunks(4096)
+            .map(|chunk| {
+                let mut buf = Vec::with_capacity(64);
+                chunk
+                    .iter()
+                    .map(|&row| {
+                        buf.clear();
+                        for e in &encoders {
+                            e.write(row, &mut buf, false);
+                        }
+                        truncate(blake3::keyed_hash(&self.key, &buf))
+                    })
+                    .collect()
+            })
+            .collect();
+        out.reserve(rows.len());
+        for c in chunks {
+            out.extend(c);
         }
         Ok(())
     }
 }
 
-/// The canonical encoding of one value, as bytes (for stratum keys and tests).
+/// The canonical encoding of one value, as bytes (for tests and one-off keys).
 ///
 /// # Errors
 /// Types that cannot be encoded.
@@ -398,6 +413,50 @@ pub fn encode_value(array: &ArrayRef, row: usize, name: &str) -> Result<Vec<u8>>
     Encoder::new(array, name)?.write(row, &mut out, false);
     Ok(out)
 }
+
+/// One column of one batch, encoding value after value (stratum keys).
+pub struct ValueEncoder(Encoder);
+
+impl ValueEncoder {
+    /// Prepares `array` (column `name`, named in errors).
+    ///
+    /// # Errors
+    /// Types that cannot be encoded.
+    pub fn new(array: &ArrayRef, name: &str) -> Result<Self> {
+        Encoder::new(array, name).map(ValueEncoder)
+    }
+
+    /// Appends value `row`'s canonical encoding to `out`.
+    pub fn write(&self, row: usize, out: &mut Vec<u8>) {
+        self.0.write(row, out, false);
+    }
+}
+
+/// A hasher for maps keyed by row digests: a digest's bits are already
+/// uniform, so its first 64 bits serve as the hash (no second hash).
+#[derive(Default, Clone, Copy)]
+pub struct DigestBits(u64);
+
+impl std::hash::Hasher for DigestBits {
+    fn write(&mut self, bytes: &[u8]) {
+        for chunk in bytes.chunks(8) {
+            let mut word = [0u8; 8];
+            word[..chunk.len()].copy_from_slice(chunk);
+            self.0 = self.0.rotate_left(5) ^ u64::from_le_bytes(word);
+        }
+    }
+
+    fn write_usize(&mut self, _: usize) {
+        // The length prefix of a fixed-size digest carries nothing.
+    }
+
+    fn finish(&self) -> u64 {
+        self.0
+    }
+}
+
+/// A hash map keyed by row digests.
+pub type DigestMap<V> = std::collections::HashMap<RowDigest, V, std::hash::BuildHasherDefault<DigestBits>>;
 
 thread_local! {
     /// A reused buffer for normalised text.
@@ -413,19 +472,25 @@ const TAG_DATE: u8 = 5;
 const TAG_TIMESTAMP: u8 = 6;
 const TAG_LOCAL_TIMESTAMP: u8 = 7;
 
-/// One column of one batch, ready to encode value by value.
-enum Encoder {
+/// One column of one batch, ready to encode value by value: the array is
+/// held by its concrete type, so a value costs no dynamic dispatch.
+struct Encoder {
+    nulls: Option<NullBuffer>,
+    kind: Kind,
+}
+
+enum Kind {
     Null,
-    Bool(ArrayRef),
-    Int64(ArrayRef),
-    UInt64(ArrayRef),
-    Float64(ArrayRef),
-    Float32(ArrayRef),
-    Decimal(ArrayRef, i64),
-    Utf8(ArrayRef),
-    Binary(ArrayRef),
-    Date(ArrayRef),
-    Timestamp { array: ArrayRef, unit: TimeUnit, zoned: bool },
+    Bool(BooleanArray),
+    Int64(ScalarBuffer<i64>),
+    UInt64(ScalarBuffer<u64>),
+    Float64(ScalarBuffer<f64>),
+    Float32(ScalarBuffer<f32>),
+    Decimal(ScalarBuffer<i128>, i64),
+    Utf8(StringArray),
+    Binary(BinaryArray),
+    Date(ScalarBuffer<i32>),
+    Timestamp { values: ScalarBuffer<i64>, per_second: i64, zoned: bool },
 }
 
 fn cast(array: &ArrayRef, to: &DataType, name: &str) -> Result<ArrayRef> {
@@ -443,26 +508,42 @@ impl Encoder {
             let plain = cast(array, value, name)?;
             return Encoder::new(&plain, name);
         }
-        Ok(match dt {
-            DataType::Null => Encoder::Null,
-            DataType::Boolean => Encoder::Bool(array.clone()),
-            DataType::Int64 => Encoder::Int64(array.clone()),
+        let kind = match dt {
+            DataType::Null => Kind::Null,
+            DataType::Boolean => Kind::Bool(array.as_boolean().clone()),
+            DataType::Int64 => Kind::Int64(array.as_primitive::<Int64Type>().values().clone()),
             DataType::Int8 | DataType::Int16 | DataType::Int32 | DataType::UInt8 | DataType::UInt16 | DataType::UInt32 => {
-                Encoder::Int64(cast(array, &DataType::Int64, name)?)
+                return Encoder::new(&cast(array, &DataType::Int64, name)?, name);
             }
-            DataType::UInt64 => Encoder::UInt64(array.clone()),
-            DataType::Float64 => Encoder::Float64(array.clone()),
-            DataType::Float32 => Encoder::Float32(array.clone()),
-            DataType::Decimal128(_, scale) => Encoder::Decimal(array.clone(), scale as i64),
-            DataType::Utf8 => Encoder::Utf8(array.clone()),
-            DataType::LargeUtf8 | DataType::Utf8View => Encoder::Utf8(cast(array, &DataType::Utf8, name)?),
-            DataType::Binary => Encoder::Binary(array.clone()),
+            DataType::UInt64 => Kind::UInt64(array.as_primitive::<UInt64Type>().values().clone()),
+            DataType::Float64 => Kind::Float64(array.as_primitive::<Float64Type>().values().clone()),
+            DataType::Float32 => Kind::Float32(array.as_primitive::<Float32Type>().values().clone()),
+            DataType::Decimal128(_, scale) => {
+                Kind::Decimal(array.as_primitive::<Decimal128Type>().values().clone(), scale as i64)
+            }
+            DataType::Utf8 => Kind::Utf8(array.as_string::<i32>().clone()),
+            DataType::LargeUtf8 | DataType::Utf8View => {
+                return Encoder::new(&cast(array, &DataType::Utf8, name)?, name);
+            }
+            DataType::Binary => Kind::Binary(array.as_binary::<i32>().clone()),
             DataType::LargeBinary | DataType::BinaryView | DataType::FixedSizeBinary(_) => {
-                Encoder::Binary(cast(array, &DataType::Binary, name)?)
+                return Encoder::new(&cast(array, &DataType::Binary, name)?, name);
             }
-            DataType::Date32 => Encoder::Date(array.clone()),
-            DataType::Date64 => Encoder::Date(cast(array, &DataType::Date32, name)?),
-            DataType::Timestamp(unit, tz) => Encoder::Timestamp { array: array.clone(), unit, zoned: tz.is_some() },
+            DataType::Date32 => Kind::Date(array.as_primitive::<Date32Type>().values().clone()),
+            DataType::Date64 => return Encoder::new(&cast(array, &DataType::Date32, name)?, name),
+            DataType::Timestamp(unit, tz) => {
+                let (values, per_second) = match unit {
+                    TimeUnit::Second => (array.as_primitive::<TimestampSecondType>().values().clone(), 1),
+                    TimeUnit::Millisecond => (array.as_primitive::<TimestampMillisecondType>().values().clone(), 1_000),
+                    TimeUnit::Microsecond => {
+                        (array.as_primitive::<TimestampMicrosecondType>().values().clone(), 1_000_000)
+                    }
+                    TimeUnit::Nanosecond => {
+                        (array.as_primitive::<TimestampNanosecondType>().values().clone(), 1_000_000_000)
+                    }
+                };
+                Kind::Timestamp { values, per_second, zoned: tz.is_some() }
+            }
             other => {
                 return Err(Error::UnsupportedType {
                     path: Default::default(),
@@ -470,84 +551,61 @@ impl Encoder {
                     data_type: other.to_string(),
                 })
             }
-        })
+        };
+        let nulls = array.logical_nulls().filter(|n| n.null_count() > 0);
+        Ok(Encoder { nulls, kind })
     }
 
-    fn array(&self) -> Option<&ArrayRef> {
-        match self {
-            Encoder::Null => None,
-            Encoder::Bool(a)
-            | Encoder::Int64(a)
-            | Encoder::UInt64(a)
-            | Encoder::Float64(a)
-            | Encoder::Float32(a)
-            | Encoder::Decimal(a, _)
-            | Encoder::Utf8(a)
-            | Encoder::Binary(a)
-            | Encoder::Date(a) => Some(a),
-            Encoder::Timestamp { array, .. } => Some(array),
-        }
+    fn is_null(&self, row: usize) -> bool {
+        matches!(self.kind, Kind::Null) || self.nulls.as_ref().is_some_and(|n| n.is_null(row))
     }
 
     /// Appends the loose encoding of value `row`, given its exact encoding:
     /// text is normalised, floats rounded; everything else is unchanged.
     fn loosen(&self, row: usize, exact: &[u8], out: &mut Vec<u8>) {
-        match self {
-            Encoder::Float64(_) | Encoder::Float32(_) if exact[0] == TAG_NUMBER => {
+        match self.kind {
+            Kind::Float64(_) | Kind::Float32(_) if exact[0] == TAG_NUMBER => {
                 with_len(out, TAG_NUMBER, |o| value::round_text(&exact[5..], 6, o));
             }
-            Encoder::Utf8(_) if exact[0] == TAG_STRING => self.write(row, out, true),
+            Kind::Utf8(_) if exact[0] == TAG_STRING => self.write(row, out, true),
             _ => out.extend_from_slice(exact),
         }
     }
 
     /// Appends value `row`'s encoding; `loose` normalises text and floats.
+    #[inline]
     fn write(&self, row: usize, out: &mut Vec<u8>, loose: bool) {
-        match self.array() {
-            None => {
-                out.push(TAG_NULL);
-                return;
-            }
-            Some(a) if a.is_null(row) => {
-                out.push(TAG_NULL);
-                return;
-            }
-            _ => {}
+        if self.is_null(row) {
+            out.push(TAG_NULL);
+            return;
         }
-        match self {
-            Encoder::Null => unreachable!("handled above"),
-            Encoder::Bool(a) => {
+        match &self.kind {
+            Kind::Null => unreachable!("handled above"),
+            Kind::Bool(a) => {
                 out.push(TAG_BOOL);
-                out.push(a.as_boolean().value(row) as u8);
+                out.push(a.value(row) as u8);
             }
-            Encoder::Int64(a) => {
-                let v = a.as_primitive::<Int64Type>().value(row);
-                with_len(out, TAG_NUMBER, |o| value::write_i64(v, o));
-            }
-            Encoder::UInt64(a) => {
-                let v = a.as_primitive::<UInt64Type>().value(row);
-                with_len(out, TAG_NUMBER, |o| value::write_u64(v, o));
-            }
-            Encoder::Float64(a) => {
-                let v = a.as_primitive::<Float64Type>().value(row);
+            Kind::Int64(a) => with_len(out, TAG_NUMBER, |o| value::write_i64(a[row], o)),
+            Kind::UInt64(a) => with_len(out, TAG_NUMBER, |o| value::write_u64(a[row], o)),
+            Kind::Float64(a) => {
+                let v = a[row];
                 with_len(out, TAG_NUMBER, |o| match loose.then(|| value::canonical_f64(v)).flatten() {
                     Some(c) => c.round_significant(6).write(o),
                     None => value::write_f64(v, o),
                 });
             }
-            Encoder::Float32(a) => {
-                let v = a.as_primitive::<Float32Type>().value(row);
+            Kind::Float32(a) => {
+                let v = a[row];
                 with_len(out, TAG_NUMBER, |o| match loose.then(|| value::canonical_f32(v)).flatten() {
                     Some(c) => c.round_significant(6).write(o),
                     None => value::write_f32(v, o),
                 });
             }
-            Encoder::Decimal(a, scale) => {
-                let v = a.as_primitive::<Decimal128Type>().value(row);
-                with_len(out, TAG_NUMBER, |o| value::Canonical::from_scaled(v, *scale).write(o));
+            Kind::Decimal(a, scale) => {
+                with_len(out, TAG_NUMBER, |o| value::Canonical::from_scaled(a[row], *scale).write(o));
             }
-            Encoder::Utf8(a) => {
-                let s = a.as_string::<i32>().value(row);
+            Kind::Utf8(a) => {
+                let s = a.value(row);
                 if loose {
                     let n = LOOSE_TEXT.with(|cell| {
                         let mut buf = cell.take();
@@ -561,23 +619,12 @@ impl Encoder {
                     with_len(out, TAG_STRING, |o| o.extend_from_slice(s.as_bytes()));
                 }
             }
-            Encoder::Binary(a) => {
-                let b = a.as_binary::<i32>().value(row);
-                with_len(out, TAG_BINARY, |o| o.extend_from_slice(b));
-            }
-            Encoder::Date(a) => {
-                let days = a.as_primitive::<Date32Type>().value(row);
-                with_len(out, TAG_DATE, |o| write_date(days as i64, o));
-            }
-            Encoder::Timestamp { array, unit, zoned } => {
-                let (per_second, v) = match unit {
-                    TimeUnit::Second => (1i64, array.as_primitive::<TimestampSecondType>().value(row)),
-                    TimeUnit::Millisecond => (1_000, array.as_primitive::<TimestampMillisecondType>().value(row)),
-                    TimeUnit::Microsecond => (1_000_000, array.as_primitive::<TimestampMicrosecondType>().value(row)),
-                    TimeUnit::Nanosecond => (1_000_000_000, array.as_primitive::<TimestampNanosecondType>().value(row)),
-                };
-                let secs = v.div_euclid(per_second);
-                let nanos = v.rem_euclid(per_second) * (1_000_000_000 / per_second);
+            Kind::Binary(a) => with_len(out, TAG_BINARY, |o| o.extend_from_slice(a.value(row))),
+            Kind::Date(a) => with_len(out, TAG_DATE, |o| write_date(a[row] as i64, o)),
+            Kind::Timestamp { values, per_second, zoned } => {
+                let v = values[row];
+                let secs = v.div_euclid(*per_second);
+                let nanos = v.rem_euclid(*per_second) * (1_000_000_000 / per_second);
                 let tag = if *zoned { TAG_TIMESTAMP } else { TAG_LOCAL_TIMESTAMP };
                 with_len(out, tag, |o| write_timestamp(secs, nanos as u32, *zoned, o));
             }

@@ -11,14 +11,16 @@
 //! equal cuts merge, and a value goes to the bin numbered by how many cuts lie
 //! strictly below it. So equal values always share a bin.
 
-use std::collections::{BTreeMap, HashMap, HashSet};
+use std::collections::BTreeMap;
+
+use foldhash::{HashMap, HashMapExt, HashSet, HashSetExt};
 
 use arrow_array::cast::AsArray;
 use arrow_array::types::Float64Type;
 use arrow_array::{Array, ArrayRef};
 use arrow_schema::DataType;
 
-use crate::digest::encode_value;
+use crate::digest::ValueEncoder;
 use crate::error::{Error, Result};
 use crate::io::ColumnType;
 
@@ -95,13 +97,20 @@ impl StrataBuilder {
         for (col, array) in self.columns.iter_mut().zip(arrays) {
             match col {
                 Column::Categorical { name, ids, labels, codes } => {
+                    let encoder = ValueEncoder::new(array, name)?;
+                    let mut key = Vec::with_capacity(32);
                     for row in 0..array.len() {
-                        let key = encode_value(array, row, name)?;
-                        let next = ids.len() as u32;
-                        let id = *ids.entry(key).or_insert_with(|| {
-                            labels.push(display(array, row));
-                            next
-                        });
+                        key.clear();
+                        encoder.write(row, &mut key);
+                        let id = match ids.get(key.as_slice()) {
+                            Some(&id) => id,
+                            None => {
+                                let id = ids.len() as u32;
+                                ids.insert(key.clone(), id);
+                                labels.push(display(array, row));
+                                id
+                            }
+                        };
                         codes.push(id);
                     }
                 }
@@ -110,6 +119,8 @@ impl StrataBuilder {
                         Error::Options(format!("--stratify: column `{name}` cannot be read as numbers: {e}"))
                     })?;
                     let floats = floats.as_primitive::<Float64Type>();
+                    let encoder = ValueEncoder::new(array, name)?;
+                    let mut key = Vec::with_capacity(32);
                     for row in 0..array.len() {
                         if floats.is_null(row) {
                             values.push(None);
@@ -122,9 +133,16 @@ impl StrataBuilder {
                             if let Some(v) = values.last().copied().flatten() {
                                 distinct.insert(v.to_bits());
                             }
-                            let key = encode_value(array, row, name)?;
-                            let next = keys.len() as u32;
-                            let id = keys.entry(key).or_insert_with(|| (next, display(array, row))).0;
+                            key.clear();
+                            encoder.write(row, &mut key);
+                            let id = match keys.get(key.as_slice()) {
+                                Some(&(id, _)) => id,
+                                None => {
+                                    let id = keys.len() as u32;
+                                    keys.insert(key.clone(), (id, display(array, row)));
+                                    id
+                                }
+                            };
                             codes.push(id);
                         }
                     }

@@ -22,7 +22,6 @@
 //!   keyed BLAKE3 hash of its digest and the seed, so it never moves when other
 //!   rows come or go; shares are then approximate.
 
-use std::collections::HashMap;
 
 use arrow_array::cast::AsArray;
 use arrow_array::types::{
@@ -33,7 +32,7 @@ use arrow_array::{Array, ArrayRef};
 use arrow_schema::{DataType, TimeUnit};
 use std::path::Path;
 
-use crate::digest::RowDigest;
+use crate::digest::{DigestMap, RowDigest};
 use crate::error::{Error, Result};
 use crate::io::Batch;
 use crate::split::rng::SplitRng;
@@ -187,13 +186,13 @@ pub struct Groups {
     pub sizes: Vec<u64>,
     /// Each group's digest.
     pub digests: Vec<RowDigest>,
-    index: HashMap<RowDigest, u32>,
+    index: DigestMap<u32>,
 }
 
 impl Groups {
     /// No groups yet.
     pub fn new() -> Self {
-        Groups { row_group: Vec::new(), sizes: Vec::new(), digests: Vec::new(), index: HashMap::new() }
+        Groups { row_group: Vec::new(), sizes: Vec::new(), digests: Vec::new(), index: DigestMap::default() }
     }
 
     /// Adds rows by their group digests.
