@@ -436,6 +436,7 @@ pub fn assign_time(times: &[i64], groups: Option<&Groups>, ratios: &Ratios, gap:
 #[cfg(test)]
 mod tests {
     use super::*;
+    use std::collections::HashMap;
 
     #[test]
     fn gap_units() {
