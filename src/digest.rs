@@ -128,12 +128,19 @@ pub fn hex(bytes: &[u8]) -> String {
 /// The content digest of a set of rows: order-independent, and sensitive to
 /// duplicates (a sorted list, never a XOR or sum). Sorts `digests`.
 pub fn content_digest(digests: &mut [RowDigest]) -> String {
-    digests.sort_unstable();
+    sort_digests(digests);
     let mut h = blake3::Hasher::new_derive_key(CONTENT_CONTEXT);
     for d in digests.iter() {
         h.update(d);
     }
     h.finalize().to_hex().to_string()
+}
+
+/// Sorts digests in byte order (as 128-bit big-endian integers: one
+/// comparison each, and across threads; the result is the same either way).
+pub fn sort_digests(digests: &mut [RowDigest]) {
+    use rayon::slice::ParallelSliceMut;
+    digests.par_sort_unstable_by_key(|d| u128::from_be_bytes(*d));
 }
 
 fn material(key: Option<&DigestKey>, lists: &[&[String]]) -> Vec<u8> {
@@ -707,7 +714,17 @@ fn push_padded(out: &mut Vec<u8>, v: u32, width: usize) {
     out.extend(digits[..n].iter().rev());
 }
 
+/// Two digits of `v < 100`.
+fn push2(out: &mut Vec<u8>, v: u32) {
+    out.extend_from_slice(&[b'0' + (v / 10) as u8, b'0' + (v % 10) as u8]);
+}
+
 fn write_year(y: i64, out: &mut Vec<u8>) {
+    if (0..10_000).contains(&y) {
+        push2(out, y as u32 / 100);
+        push2(out, y as u32 % 100);
+        return;
+    }
     if y < 0 {
         out.push(b'-');
     }
@@ -719,9 +736,9 @@ pub fn write_date(days: i64, out: &mut Vec<u8>) {
     let (y, m, d) = civil_from_days(days);
     write_year(y, out);
     out.push(b'-');
-    push_padded(out, m, 2);
+    push2(out, m);
     out.push(b'-');
-    push_padded(out, d, 2);
+    push2(out, d);
 }
 
 /// `YYYY-MM-DDTHH:MM:SS[.fraction][Z]` of seconds and nanoseconds since the epoch.
@@ -730,11 +747,11 @@ pub fn write_timestamp(secs: i64, nanos: u32, zoned: bool, out: &mut Vec<u8>) {
     let rem = secs.rem_euclid(86_400) as u32;
     write_date(days, out);
     out.push(b'T');
-    push_padded(out, rem / 3600, 2);
+    push2(out, rem / 3600);
     out.push(b':');
-    push_padded(out, rem / 60 % 60, 2);
+    push2(out, rem / 60 % 60);
     out.push(b':');
-    push_padded(out, rem % 60, 2);
+    push2(out, rem % 60);
     if nanos > 0 {
         let mut frac = [0u8; 9];
         let mut x = nanos;

@@ -322,7 +322,8 @@ const POW10: [f64; 16] = [1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10
 /// with the fewest fraction digits is the shortest, and it is unique. The
 /// product `|v| x 10^k` is off by at most half an ulp, far less than the
 /// distance to the next half-integer, so rounding it finds `n` whenever `n`
-/// exists (Clinger's fast path, run backwards). Anything else, zero,
+/// exists (Clinger's fast path, run backwards); an `n` off by one could only
+/// fail the test, never pass it wrongly. Anything else, zero,
 /// subnormals and very large or small magnitudes go to Ryu.
 fn short_decimal(v: f64) -> Option<(u64, usize)> {
     let a = v.abs();
@@ -334,9 +335,10 @@ fn short_decimal(v: f64) -> Option<(u64, usize)> {
         if x >= 1e15 {
             return None;
         }
-        let n = x.round();
-        if n / p == a {
-            return Some((n as u64, k));
+        // Any integer next to x will do: the test below accepts only n.
+        let n = (x + 0.5) as u64;
+        if n as f64 / p == a {
+            return Some((n, k));
         }
     }
     None
@@ -352,13 +354,10 @@ fn write_scaled(negative: bool, mut n: u64, k: usize, out: &mut Vec<u8>) {
     if negative {
         out.push(b'-');
     }
-    let mut buf = itoa_buf::Buf::default();
-    out.extend_from_slice(buf.format(n));
+    let mut buf = itoa::Buffer::new();
+    out.extend_from_slice(buf.format(n).as_bytes());
     out.push(b'e');
-    if exp < 0 {
-        out.push(b'-');
-    }
-    out.extend_from_slice(buf.format(exp.unsigned_abs()));
+    out.extend_from_slice(buf.format(exp).as_bytes());
 }
 
 /// Appends `[-]DIGITSeEXP` for a finite float's shortest text (`1.5`,
@@ -409,11 +408,7 @@ fn write_shortest(text: &str, out: &mut Vec<u8>) {
     }
     out.extend_from_slice(&digits[..n]);
     out.push(b'e');
-    let mut e = itoa_buf::Buf::default();
-    if exp < 0 {
-        out.push(b'-');
-    }
-    out.extend_from_slice(e.format(exp.unsigned_abs()));
+    out.extend_from_slice(itoa::Buffer::new().format(exp).as_bytes());
 }
 
 /// Rounds canonical number text (`DIGITSeEXP`) to `n` significant digits,
@@ -459,10 +454,10 @@ pub fn write_i64(v: i64, out: &mut Vec<u8>) {
     if v < 0 {
         out.push(b'-');
     }
-    let mut buf = itoa_buf::Buf::default();
-    out.extend_from_slice(buf.format(mag));
+    let mut buf = itoa::Buffer::new();
+    out.extend_from_slice(buf.format(mag).as_bytes());
     out.push(b'e');
-    out.extend_from_slice(buf.format(exp as u64));
+    out.extend_from_slice(buf.format(exp).as_bytes());
 }
 
 /// Appends the canonical text of an unsigned 64-bit integer.
@@ -471,29 +466,6 @@ pub fn write_u64(v: u64, out: &mut Vec<u8>) {
         write_i64(v as i64, out);
     } else {
         Canonical::from_i128(v as i128).write(out);
-    }
-}
-
-mod itoa_buf {
-    /// A small stack buffer for decimal digits of a u64.
-    #[derive(Default)]
-    pub struct Buf {
-        bytes: [u8; 20],
-    }
-
-    impl Buf {
-        pub fn format(&mut self, mut v: u64) -> &[u8] {
-            let mut i = self.bytes.len();
-            loop {
-                i -= 1;
-                self.bytes[i] = b'0' + (v % 10) as u8;
-                v /= 10;
-                if v == 0 {
-                    break;
-                }
-            }
-            &self.bytes[i..]
-        }
     }
 }
 

@@ -10,6 +10,7 @@
 
 pub mod csv;
 mod jsonl;
+mod pipe;
 mod write;
 
 use std::collections::BTreeMap;
@@ -25,6 +26,7 @@ use parquet::arrow::arrow_reader::{ParquetRecordBatchReader, ParquetRecordBatchR
 use parquet::arrow::ProjectionMask;
 
 pub use self::csv::RawRows;
+pub use self::pipe::{ReadAhead, WriterThread};
 pub use self::write::{write_small, FileSummary, PartitionWriter};
 use crate::error::{Error, Result};
 use crate::value;

@@ -56,8 +56,8 @@ enum Inner {
 
 /// Writes one partition file.
 pub struct PartitionWriter {
-    path: PathBuf,
-    format: Format,
+    pub(super) path: PathBuf,
+    pub(super) format: Format,
     inner: Inner,
 }
 

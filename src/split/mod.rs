@@ -477,7 +477,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         });
         let target_schema = if has_folds { &fold_schema } else { &schema };
         let w = PartitionWriter::create(&staging.path.join(&file), output_format, target_schema, header.as_deref(), compression)?;
-        writers.push((file, w));
+        writers.push((file, w.spawn()));
     }
     // The evaluator hand-off: test rows without labels, with a row_id.
     let mut handoff = None;
@@ -494,19 +494,18 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         let hschema: SchemaRef = Arc::new(Schema::new_with_metadata(fields, schema.metadata().clone()));
         let file = format!("test.features.{}", output_format.extension());
         let w = PartitionWriter::create(&staging.path.join(&file), output_format, &hschema, None, compression)?;
-        handoff = Some((file, w, keep, hschema, 0u64));
+        handoff = Some((file, w.spawn(), keep, hschema, 0u64));
     }
-    let group_spec = (!group.is_empty()).then(|| GroupSpec::new(&group, cfg.digest_key.as_ref()));
     let mut digests: Vec<Vec<RowDigest>> = totals.iter().map(|&t| Vec::with_capacity(t as usize)).collect();
     let mut test_seal: Vec<(RowDigests, u64)> = Vec::with_capacity(totals[test_index] as usize);
     let mut test_groups: BTreeMap<RowDigest, u64> = BTreeMap::new();
     let mut fold_counts: Vec<BTreeMap<u32, u64>> = vec![BTreeMap::new(); k];
     let mut time_ranges: Vec<Option<(i64, i64)>> = vec![None; k];
-    let mut batches = table.batches(None, raw_csv)?;
+    // Decoding, digesting and each file's encoding run on threads of their
+    // own; every stream keeps its order, so the outputs do not depend on them.
+    let mut batches = table.batches(None, raw_csv)?.read_ahead();
     let mut batch_digests = Vec::new();
     let mut test_digests = Vec::new();
-    let mut group_digests = Vec::new();
-    let mut line = Vec::new();
     while let Some(batch) = batches.next_batch()? {
         let n = batch.data.num_rows();
         let start = (batch.first_row - 1) as usize;
@@ -540,33 +539,50 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             bound.row_digests_of(&batch.data, &rows, &mut batch_digests)?;
             digests[p].extend_from_slice(&batch_digests);
         }
-        if let Some(gs) = &group_spec {
-            group_digests.clear();
-            gs.digests(&cfg.input, &batch.data, &mut group_digests)?;
-        }
         for (j, d) in test_digests.drain(..).enumerate() {
             let row = test_seal.len() as u64 + 1;
             test_seal.push((d, row));
-            if group_spec.is_some() {
-                test_groups.entry(group_digests[test_rows[j]]).or_insert(row);
+            if let Some(groups) = &facts.groups {
+                let g = groups.row_group[start + test_rows[j]];
+                test_groups.entry(groups.digests[g as usize]).or_insert(row);
             }
+        }
+        // The test rows, taken once for the test file and the hand-off.
+        let mut test_part = None;
+        if batch.raw.is_none() && !test_rows.is_empty() {
+            let take = UInt32Array::from(std::mem::take(&mut indices[test_index]));
+            test_part = Some(
+                arrow_select::take::take_record_batch(&batch.data, &take)
+                    .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?,
+            );
         }
         if let Some((_, w, keep, hschema, written)) = handoff.as_mut() {
             if !test_rows.is_empty() {
-                let take = UInt32Array::from(indices[test_index].clone());
-                let part = arrow_select::take::take_record_batch(&batch.data, &take)
-                    .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?;
+                let part = match &test_part {
+                    Some(p) => p.clone(),
+                    None => {
+                        let take = UInt32Array::from(indices[test_index].clone());
+                        arrow_select::take::take_record_batch(&batch.data, &take)
+                            .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?
+                    }
+                };
                 let ids: Vec<String> =
                     (0..part.num_rows()).map(|i| row_id(cfg.seed, *written + i as u64 + 1)).collect();
                 let mut columns: Vec<ArrayRef> = vec![Arc::new(arrow_array::StringArray::from(ids))];
                 columns.extend(keep.iter().map(|&i| part.column(i).clone()));
                 let features = RecordBatch::try_new(hschema.clone(), columns)
                     .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?;
-                w.write_batch(&features)?;
+                w.write_batch(features)?;
                 *written += part.num_rows() as u64;
             }
         }
         for (p, (_, w)) in writers.iter_mut().enumerate() {
+            if p == test_index {
+                if let Some(part) = test_part.take() {
+                    w.write_batch(part)?;
+                    continue;
+                }
+            }
             if indices[p].is_empty() {
                 continue;
             }
@@ -577,16 +593,14 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
                 }
             }
             if let Some(raw) = &batch.raw {
+                let mut bytes = Vec::with_capacity(raw.bytes.len() * indices[p].len() / n.max(1) + 64);
                 for &i in &indices[p] {
                     match fold_of(i) {
-                        Some(f) => {
-                            line.clear();
-                            append_csv_field(raw.record(i as usize), &f.to_string(), &mut line);
-                            w.write_raw(&line)?;
-                        }
-                        None => w.write_raw(raw.record(i as usize))?,
+                        Some(f) => append_csv_field(raw.record(i as usize), &f.to_string(), &mut bytes),
+                        None => bytes.extend_from_slice(raw.record(i as usize)),
                     }
                 }
+                w.write_raw(bytes)?;
             } else {
                 let fold_values: Option<Vec<i64>> =
                     fold_of(0).map(|_| indices[p].iter().map(|&i| fold_of(i).expect("dev row") as i64).collect());
@@ -599,7 +613,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
                     part = RecordBatch::try_new(fold_schema.clone(), columns)
                         .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?;
                 }
-                w.write_batch(&part)?;
+                w.write_batch(part)?;
             }
         }
     }
@@ -631,7 +645,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     // Identical rows in two partitions: a later check of the train file
     // would flag them, and they are a leak from the start.
     for d in digests.iter_mut() {
-        d.sort_unstable();
+        digest::sort_digests(d);
     }
     let shared = rows_shared_with_test(&digests);
     if shared > 0 {
@@ -684,7 +698,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     };
     let test_group_records: Vec<seal::SealRecord> = test_groups.into_iter().collect();
     let seal_files =
-        write_seal(&staging.path, &test_seal, group_spec.as_ref().map(|_| test_group_records.as_slice()))?;
+        write_seal(&staging.path, &test_seal, facts.groups.as_ref().map(|_| test_group_records.as_slice()))?;
     let largest_deviation: BTreeMap<String, String> = if facts.groups.is_some() && !stratify.is_empty() {
         counts
             .iter()
@@ -816,8 +830,21 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
 /// Test rows whose row digest also occurs in another partition (each
 /// partition's digests sorted).
 fn rows_shared_with_test(digests: &[Vec<RowDigest>]) -> u64 {
+    // Every list is sorted: one merge walk per other partition.
     let (test, others) = digests.split_last().expect("at least two partitions");
-    test.iter().filter(|d| others.iter().any(|o| o.binary_search(d).is_ok())).count() as u64
+    let mut shared = vec![false; test.len()];
+    for other in others {
+        let mut j = 0;
+        for (i, d) in test.iter().enumerate() {
+            while j < other.len() && other[j] < *d {
+                j += 1;
+            }
+            if j < other.len() && other[j] == *d {
+                shared[i] = true;
+            }
+        }
+    }
+    shared.iter().filter(|&&s| s).count() as u64
 }
 
 /// Writes the seal files of the test partition: rows, features and loose
