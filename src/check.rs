@@ -26,7 +26,7 @@ use arrow_array::cast::AsArray;
 use arrow_array::{ArrayRef, RecordBatch};
 use arrow_schema::{DataType, Field, Schema};
 
-use crate::digest::{DigestKey, DigestSpec, GroupSpec, RowDigest};
+use crate::digest::{self, DigestKey, DigestSpec, GroupSpec, RowDigest};
 use crate::error::{Error, Result};
 use crate::io::{self, Batch, ColumnType, Format, Table, TypeHints};
 use crate::manifest::{self, LoadedManifest, SealKind};
@@ -395,12 +395,10 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
             collectors.insert(kind, Collector::new(opts.max_examples));
         }
     }
-    let mut distinct_groups: HashSet<RowDigest> = HashSet::new();
+    let mut distinct_groups: HashSet<RowDigest, std::hash::BuildHasherDefault<digest::DigestBits>> = HashSet::default();
     let mut rows_checked = 0u64;
     if !needed.is_empty() {
-        let mut batches = table.batches(Some(needed.as_slice()), false)?;
-        let mut digests = Vec::new();
-        let mut group_digests = Vec::new();
+        let mut batches = table.batches(Some(needed.as_slice()), false)?.read_ahead();
         let mut times = Vec::new();
         while let Some(batch) = batches.next_batch()? {
             // Read every needed column the sealed way.
@@ -419,36 +417,43 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
             let line = |i: usize| conformed.lines.as_ref().map(|l| l[i]);
             let row_no = |i: usize| conformed.first_row + i as u64;
             let all: Vec<usize> = (0..n).collect();
+            // Digests and seal lookups run in parallel; hits come back in row
+            // order, so examples do not depend on the number of threads.
             if features_ok {
-                digests.clear();
                 let bound = if rows_ok {
                     seal.spec.bind(path, &conformed.data.schema())?
                 } else {
                     seal.spec.bind_features(path, &conformed.data.schema())?
                 };
-                bound.all_digests(&conformed.data, &all, &mut digests)?;
-                for (i, d) in digests.iter().enumerate() {
-                    if rows_ok {
-                        if let Some(t) = seal.rows.as_ref().expect("rows seal").get(&d.row) {
-                            collectors.get_mut(&Kind::Row).expect("on").hit(row_no(i), line(i), Some(t));
+                let enc = bound.encoder(&conformed.data)?;
+                let rows_seal = seal.rows.as_ref().filter(|_| rows_ok);
+                let hits = digest::par_rows(&all, |i, scratch| {
+                    let d = enc.all(i, scratch);
+                    [
+                        rows_seal.and_then(|s| s.get(&d.row)),
+                        seal.features.get(&d.features),
+                        seal.loose.get(&d.loose),
+                    ]
+                });
+                for (i, h) in hits.iter().enumerate() {
+                    for (kind, t) in [Kind::Row, Kind::Features, Kind::Near].into_iter().zip(h) {
+                        if let Some(t) = t {
+                            collectors.get_mut(&kind).expect("on").hit(row_no(i), line(i), Some(*t));
                         }
-                    }
-                    if let Some(t) = seal.features.get(&d.features) {
-                        collectors.get_mut(&Kind::Features).expect("on").hit(row_no(i), line(i), Some(t));
-                    }
-                    if let Some(t) = seal.loose.get(&d.loose) {
-                        collectors.get_mut(&Kind::Near).expect("on").hit(row_no(i), line(i), Some(t));
                     }
                 }
             }
             if groups_ok {
-                group_digests.clear();
-                seal.group_spec.as_ref().expect("groups").digests(path, &conformed.data, &mut group_digests)?;
+                let enc = seal.group_spec.as_ref().expect("groups").encoder(path, &conformed.data)?;
                 let sealed = seal.groups.as_ref().expect("groups seal");
-                for (i, d) in group_digests.iter().enumerate() {
-                    if let Some(t) = sealed.get(d) {
+                let hits = digest::par_rows(&all, |i, scratch| {
+                    let d = enc.digest(i, scratch);
+                    sealed.get(&d).map(|t| (d, t))
+                });
+                for (i, h) in hits.iter().enumerate() {
+                    if let Some((d, t)) = h {
                         distinct_groups.insert(*d);
-                        collectors.get_mut(&Kind::Group).expect("on").hit(row_no(i), line(i), Some(t));
+                        collectors.get_mut(&Kind::Group).expect("on").hit(row_no(i), line(i), Some(*t));
                     }
                 }
             }

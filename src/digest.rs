@@ -257,9 +257,91 @@ fn truncate(h: blake3::Hash) -> RowDigest {
     d
 }
 
+/// Reused buffers for encoding rows, one per thread.
+#[derive(Default)]
+pub struct Scratch {
+    exact: Vec<u8>,
+    loose: Vec<u8>,
+}
+
+/// The key columns of one batch, ready to digest any of its rows; shared
+/// by reference across threads.
+pub struct BatchEncoder<'a> {
+    spec: &'a DigestSpec,
+    encoders: Vec<Encoder>,
+}
+
+impl BatchEncoder<'_> {
+    /// The row digest of `row`.
+    pub fn row(&self, row: usize, scratch: &mut Scratch) -> RowDigest {
+        let buf = &mut scratch.exact;
+        buf.clear();
+        for e in &self.encoders {
+            e.write(row, buf, false);
+        }
+        truncate(blake3::keyed_hash(&self.spec.row_key, buf))
+    }
+
+    /// All three digests of `row`, from one encoding: the features digest
+    /// is the row digest's hash state before the labels, and the loose
+    /// encoding is derived from the exact bytes.
+    pub fn all(&self, row: usize, scratch: &mut Scratch) -> RowDigests {
+        let n_features = self.spec.features.len();
+        let Scratch { exact: buf, loose } = scratch;
+        buf.clear();
+        loose.clear();
+        for e in &self.encoders[..n_features] {
+            let start = buf.len();
+            e.write(row, buf, false);
+            e.loosen(row, &buf[start..], loose);
+        }
+        let features_end = buf.len();
+        for e in &self.encoders[n_features..] {
+            e.write(row, buf, false);
+        }
+        let mut h = blake3::Hasher::new_keyed(&self.spec.row_key);
+        h.update(&buf[..features_end]);
+        let features = truncate(h.finalize());
+        let row_digest = if features_end == buf.len() {
+            features
+        } else {
+            h.update(&buf[features_end..]);
+            truncate(h.finalize())
+        };
+        RowDigests { row: row_digest, features, loose: truncate(blake3::keyed_hash(&self.spec.loose_key, loose)) }
+    }
+}
+
+/// Runs `f` over `rows` in chunks across threads and returns the results in
+/// row order, so the output does not depend on the number of threads.
+pub fn par_rows<T: Send>(rows: &[usize], f: impl Fn(usize, &mut Scratch) -> T + Sync) -> Vec<T> {
+    use rayon::prelude::*;
+    let chunks: Vec<Vec<T>> = rows
+        .par_chunks(4096)
+        .map(|chunk| {
+            let mut scratch = Scratch::default();
+            chunk.iter().map(|&row| f(row, &mut scratch)).collect()
+        })
+        .collect();
+    let mut out = Vec::with_capacity(rows.len());
+    for c in chunks {
+        out.extend(c);
+    }
+    out
+}
+
 impl BoundSpec {
-    fn encoders<'a>(&self, batch: &'a RecordBatch) -> Result<Vec<Encoder>> {
-        self.columns.iter().map(|&i| Encoder::new(batch.column(i), batch.schema().field(i).name())).collect()
+    /// The key columns of `batch`, ready to digest.
+    ///
+    /// # Errors
+    /// Types that cannot be encoded.
+    pub fn encoder(&self, batch: &RecordBatch) -> Result<BatchEncoder<'_>> {
+        let encoders = self
+            .columns
+            .iter()
+            .map(|&i| Encoder::new(batch.column(i), batch.schema().field(i).name()))
+            .collect::<Result<_>>()?;
+        Ok(BatchEncoder { spec: &self.spec, encoders })
     }
 
     /// The row digest of every row of a batch, appended to `out`.
@@ -277,28 +359,8 @@ impl BoundSpec {
     /// # Errors
     /// Types that cannot be encoded.
     pub fn row_digests_of(&self, batch: &RecordBatch, rows: &[usize], out: &mut Vec<RowDigest>) -> Result<()> {
-        let encoders = self.encoders(batch)?;
-        use rayon::prelude::*;
-        let chunks: Vec<Vec<RowDigest>> = rows
-            .par_chunks(4096)
-            .map(|chunk| {
-                let mut buf = Vec::with_capacity(256);
-                chunk
-                    .iter()
-                    .map(|&row| {
-                        buf.clear();
-                        for e in &encoders {
-                            e.write(row, &mut buf, false);
-                        }
-                        truncate(blake3::keyed_hash(&self.spec.row_key, &buf))
-                    })
-                    .collect()
-            })
-            .collect();
-        out.reserve(rows.len());
-        for c in chunks {
-            out.extend(c);
-        }
+        let enc = self.encoder(batch)?;
+        out.extend(par_rows(rows, |row, scratch| enc.row(row, scratch)));
         Ok(())
     }
 
@@ -307,48 +369,9 @@ impl BoundSpec {
     /// # Errors
     /// Types that cannot be encoded.
     pub fn all_digests(&self, batch: &RecordBatch, rows: &[usize], out: &mut Vec<RowDigests>) -> Result<()> {
-        let encoders = self.encoders(batch)?;
-        // Rows in chunks across threads; results come back in row order, so
-        // the output does not depend on the number of threads.
-        use rayon::prelude::*;
-        let chunks: Vec<Vec<RowDigests>> = rows
-            .par_chunks(4096)
-            .map(|chunk| {
-                let mut part = Vec::with_capacity(chunk.len());
-                let mut buf = Vec::with_capacity(256);
-                let mut loose = Vec::with_capacity(256);
-                for &row in chunk {
-                    part.push(self.one_row(&encoders, row, &mut buf, &mut loose));
-                }
-                part
-            })
-            .collect();
-        for c in chunks {
-            out.extend(c);
-        }
+        let enc = self.encoder(batch)?;
+        out.extend(par_rows(rows, |row, scratch| enc.all(row, scratch)));
         Ok(())
-    }
-
-    fn one_row(&self, encoders: &[Encoder], row: usize, buf: &mut Vec<u8>, loose: &mut Vec<u8>) -> RowDigests {
-        let n_features = self.spec.features.len();
-        buf.clear();
-        loose.clear();
-        let mut features_end = 0;
-        for (i, e) in encoders.iter().enumerate() {
-            let start = buf.len();
-            e.write(row, buf, false);
-            if i < n_features {
-                // The loose encoding is derived from the exact one: each
-                // value is formatted once.
-                e.loosen(row, &buf[start..], loose);
-                features_end = buf.len();
-            }
-        }
-        RowDigests {
-            row: truncate(blake3::keyed_hash(&self.spec.row_key, buf)),
-            features: truncate(blake3::keyed_hash(&self.spec.row_key, &buf[..features_end])),
-            loose: truncate(blake3::keyed_hash(&self.spec.loose_key, loose)),
-        }
     }
 }
 
@@ -370,11 +393,11 @@ impl GroupSpec {
         &self.columns
     }
 
-    /// The group digest of each row of a batch, appended to `out`.
+    /// The group columns of `batch`, ready to digest.
     ///
     /// # Errors
     /// Missing columns and types that cannot be encoded.
-    pub fn digests(&self, path: &Path, batch: &RecordBatch, out: &mut Vec<RowDigest>) -> Result<()> {
+    pub fn encoder(&self, path: &Path, batch: &RecordBatch) -> Result<GroupEncoder<'_>> {
         let schema = batch.schema();
         let mut encoders = Vec::new();
         for name in &self.columns {
@@ -385,29 +408,36 @@ impl GroupSpec {
             })?;
             encoders.push(Encoder::new(batch.column(i), name)?);
         }
-        use rayon::prelude::*;
+        Ok(GroupEncoder { key: &self.key, encoders })
+    }
+
+    /// The group digest of each row of a batch, appended to `out`.
+    ///
+    /// # Errors
+    /// Missing columns and types that cannot be encoded.
+    pub fn digests(&self, path: &Path, batch: &RecordBatch, out: &mut Vec<RowDigest>) -> Result<()> {
+        let enc = self.encoder(path, batch)?;
         let rows: Vec<usize> = (0..batch.num_rows()).collect();
-        let chunks: Vec<Vec<RowDigest>> = rows
-            .par_chunks(4096)
-            .map(|chunk| {
-                let mut buf = Vec::with_capacity(64);
-                chunk
-                    .iter()
-                    .map(|&row| {
-                        buf.clear();
-                        for e in &encoders {
-                            e.write(row, &mut buf, false);
-                        }
-                        truncate(blake3::keyed_hash(&self.key, &buf))
-                    })
-                    .collect()
-            })
-            .collect();
-        out.reserve(rows.len());
-        for c in chunks {
-            out.extend(c);
-        }
+        out.extend(par_rows(&rows, |row, scratch| enc.digest(row, scratch)));
         Ok(())
+    }
+}
+
+/// The group columns of one batch, ready to digest any of its rows.
+pub struct GroupEncoder<'a> {
+    key: &'a [u8; 32],
+    encoders: Vec<Encoder>,
+}
+
+impl GroupEncoder<'_> {
+    /// The group digest of `row`.
+    pub fn digest(&self, row: usize, scratch: &mut Scratch) -> RowDigest {
+        let buf = &mut scratch.exact;
+        buf.clear();
+        for e in &self.encoders {
+            e.write(row, buf, false);
+        }
+        truncate(blake3::keyed_hash(self.key, buf))
     }
 }
 

@@ -10,6 +10,7 @@
 
 pub mod csv;
 mod jsonl;
+mod parquet_par;
 mod pipe;
 mod write;
 
@@ -22,8 +23,7 @@ use std::sync::Arc;
 
 use arrow_array::{Array, RecordBatch, StringArray};
 use arrow_schema::{DataType, Field, Schema, SchemaRef, TimeUnit};
-use parquet::arrow::arrow_reader::{ParquetRecordBatchReader, ParquetRecordBatchReaderBuilder};
-use parquet::arrow::ProjectionMask;
+use parquet::arrow::arrow_reader::{ArrowReaderMetadata, ParquetRecordBatchReader, ParquetRecordBatchReaderBuilder};
 
 pub use self::csv::RawRows;
 pub use self::pipe::{ReadAhead, WriterThread};
@@ -350,16 +350,16 @@ impl Table {
             )?)),
             Format::Parquet => guarded(path, format, || {
                 let file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
-                let builder =
-                    ParquetRecordBatchReaderBuilder::try_new(file).map_err(|e| decode_err(path, format, e))?;
-                let builder = match &indices {
-                    Some(idx) => {
-                        let mask = ProjectionMask::roots(builder.parquet_schema(), idx.iter().copied());
-                        builder.with_projection(mask)
-                    }
-                    None => builder,
-                };
-                let reader = builder.with_batch_size(BATCH_ROWS).build().map_err(|e| decode_err(path, format, e))?;
+                let meta = ArrowReaderMetadata::load(&file, Default::default()).map_err(|e| decode_err(path, format, e))?;
+                let row_groups = meta.metadata().num_row_groups();
+                let workers = rayon::current_num_threads().min(row_groups);
+                if workers > 1 {
+                    return Ok(BatchSource::ParquetParallel(parquet_par::Reader::start(
+                        path, meta, indices, row_groups, workers, BATCH_ROWS,
+                    )));
+                }
+                let reader = parquet_par::build(file, meta, indices.as_deref(), None, BATCH_ROWS)
+                    .map_err(|e| decode_err(path, format, e))?;
                 Ok(BatchSource::Parquet(reader))
             })?,
             Format::Arrow => guarded(path, format, || {
@@ -486,6 +486,7 @@ impl ColumnType {
 enum BatchSource {
     Csv(Box<csv::CsvReader>),
     Parquet(ParquetRecordBatchReader),
+    ParquetParallel(parquet_par::Reader),
     Ipc(arrow_ipc::reader::FileReader<BufReader<File>>),
     Json { reader: arrow_json::Reader<BufReader<File>>, projection: Option<Vec<usize>> },
 }
@@ -535,6 +536,7 @@ impl Batches {
         let next = guarded(&path, format, || match &mut self.inner {
             BatchSource::Csv(r) => Ok(r.next_batch()?.map(|(b, raw, lines)| (b, raw, Some(lines)))),
             BatchSource::Parquet(r) => r.next().transpose().map(|b| b.map(|b| (b, None, None))).map_err(|e| decode_err(&path, format, e)),
+            BatchSource::ParquetParallel(r) => Ok(r.next_batch()?.map(|b| (b, None, None))),
             BatchSource::Ipc(r) => r.next().transpose().map(|b| b.map(|b| (b, None, None))).map_err(|e| decode_err(&path, format, e)),
             BatchSource::Json { reader, projection } => {
                 let batch = reader.next().transpose().map_err(|e| decode_err(&path, format, e))?;

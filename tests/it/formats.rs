@@ -183,3 +183,38 @@ fn digest_vectors_are_reproduced() {
         assert_eq!(hex(&g.loose), w["loose"].as_str().unwrap(), "loose digest of data row {}", w["data_row"]);
     }
 }
+
+/// The demo table as Parquet in row groups of 250 rows, so that readers
+/// decode row groups on several threads and batches end at row-group ends.
+fn write_small_row_groups(t: &Test, name: &str) {
+    let file = std::fs::File::open(fixture("water-quality.csv")).unwrap();
+    let reader = arrow_csv::ReaderBuilder::new(demo_schema()).with_header(true).with_batch_size(700).build(file).unwrap();
+    let props = parquet::file::properties::WriterProperties::builder().set_max_row_group_row_count(Some(250)).build();
+    let pq = std::fs::File::create(t.path(name)).unwrap();
+    let mut w = parquet::arrow::ArrowWriter::try_new(pq, demo_schema(), Some(props)).unwrap();
+    for b in reader {
+        w.write(&b.unwrap()).unwrap();
+    }
+    let meta = w.close().unwrap();
+    assert_eq!(meta.num_row_groups(), 12);
+}
+
+#[test]
+fn many_row_groups_read_in_parallel_keep_the_file_order_whatever_the_thread_count() {
+    let mut seen = Vec::new();
+    for threads in ["1", "4"] {
+        let t = Test::new().env("RAYON_NUM_THREADS", threads);
+        t.demo();
+        write_small_row_groups(&t, "wq.parquet");
+        let csv = identity(&t, "water-quality.csv", "a", &[]);
+        assert_eq!(csv, identity(&t, "wq.parquet", "b", &[]), "{threads} thread(s)");
+        t.ok(&["split", "wq.parquet", "--out", "c", "--group", "station", "--stratify", "bloom_class", "--label", "bloom_class"]);
+        t.ok(&["verify", "c"]);
+        // The whole input against its own seal: every test row, group and
+        // near-copy is found, with examples in file order.
+        let report = t.run(&["check", "wq.parquet", "--against", "c", "--json", "--max-examples", "50"]);
+        assert_eq!(report.code, 1);
+        seen.push((crate::util::folder_bytes(&t.path("c")), report.stdout.clone()));
+    }
+    assert!(seen[0] == seen[1], "outputs differ between 1 and 4 threads");
+}
