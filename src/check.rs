@@ -219,10 +219,15 @@ pub struct CheckOptions {
 /// Sealed digests, sorted, with an index on their leading bits: digests are
 /// uniform, so the bucket of a digest's first `bits` bits holds about one
 /// record, and a lookup touches one or two cache lines (no second hash).
+/// Most rows of a checked file are not sealed, so a bitmap over four other
+/// bytes of the digest (about 11 bits per record, a few MiB that stay in
+/// cache) turns most of them away before the index is touched.
 pub struct DigestSet {
     records: Vec<SealRecord>,
     bits: u32,
     starts: Vec<u32>,
+    filter: Vec<u64>,
+    filter_bits: u32,
 }
 
 impl DigestSet {
@@ -237,15 +242,29 @@ impl DigestSet {
         for i in 0..buckets {
             starts[i + 1] += starts[i];
         }
-        DigestSet { records, bits, starts }
+        let filter_bits = (bits + 3).clamp(10, 28);
+        let mut filter = vec![0u64; (1usize << filter_bits) / 64];
+        for r in &records {
+            let f = Self::filter_slot(&r.0, filter_bits);
+            filter[f / 64] |= 1 << (f % 64);
+        }
+        DigestSet { records, bits, starts, filter, filter_bits }
     }
 
     fn bucket(d: &RowDigest, bits: u32) -> usize {
         (u32::from_be_bytes([d[0], d[1], d[2], d[3]]) >> (32 - bits)) as usize
     }
 
+    fn filter_slot(d: &RowDigest, bits: u32) -> usize {
+        (u32::from_be_bytes([d[4], d[5], d[6], d[7]]) >> (32 - bits)) as usize
+    }
+
     /// The test row of the first record with this digest, if any.
     pub fn get(&self, d: &RowDigest) -> Option<u64> {
+        let f = Self::filter_slot(d, self.filter_bits);
+        if self.filter[f / 64] & (1 << (f % 64)) == 0 {
+            return None;
+        }
         let b = Self::bucket(d, self.bits);
         let slice = &self.records[self.starts[b] as usize..self.starts[b + 1] as usize];
         slice.iter().find(|r| &r.0 == d).map(|r| r.1)
@@ -400,6 +419,8 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
     if !needed.is_empty() {
         let mut batches = table.batches(Some(needed.as_slice()), false)?.read_ahead();
         let mut times = Vec::new();
+        let mut group_digests = Vec::new();
+        let mut memo = digest::GroupMemo::default();
         while let Some(batch) = batches.next_batch()? {
             // Read every needed column the sealed way.
             let mut fields = Vec::new();
@@ -427,8 +448,11 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
                 };
                 let enc = bound.encoder(&conformed.data)?;
                 let rows_seal = seal.rows.as_ref().filter(|_| rows_ok);
-                let hits = digest::par_rows(&all, |i, scratch| {
-                    let d = enc.all(i, scratch);
+                // Lookups apart from hashing: a tight loop of independent
+                // loads lets the processor wait for many cache misses at once.
+                let digests = digest::par_rows(&all, |i, scratch| enc.all(i, scratch));
+                let hits = digest::par_rows(&all, |i, _| {
+                    let d = &digests[i];
                     [
                         rows_seal.and_then(|s| s.get(&d.row)),
                         seal.features.get(&d.features),
@@ -444,10 +468,11 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
                 }
             }
             if groups_ok {
-                let enc = seal.group_spec.as_ref().expect("groups").encoder(path, &conformed.data)?;
+                group_digests.clear();
+                seal.group_spec.as_ref().expect("groups").digests_memo(path, &conformed.data, &mut memo, &mut group_digests)?;
                 let sealed = seal.groups.as_ref().expect("groups seal");
-                let hits = digest::par_rows(&all, |i, scratch| {
-                    let d = enc.digest(i, scratch);
+                let hits = digest::par_rows(&all, |i, _| {
+                    let d = group_digests[i];
                     sealed.get(&d).map(|t| (d, t))
                 });
                 for (i, h) in hits.iter().enumerate() {

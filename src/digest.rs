@@ -423,6 +423,55 @@ impl GroupSpec {
     }
 }
 
+/// Group digests already computed, by the group's encoded key: entities
+/// repeat row after row, and a map lookup costs far less than BLAKE3. The
+/// memo stops growing at [`GroupMemo::CAPACITY`] keys (groups of one row
+/// each gain nothing from it).
+#[derive(Default)]
+pub struct GroupMemo {
+    map: foldhash::HashMap<Box<[u8]>, RowDigest>,
+}
+
+impl GroupMemo {
+    /// Most keys held.
+    pub const CAPACITY: usize = 1 << 18;
+}
+
+impl GroupSpec {
+    /// As [`GroupSpec::digests`], taking digests of groups seen before from
+    /// `memo` and computing the others in parallel.
+    ///
+    /// # Errors
+    /// As [`GroupSpec::digests`].
+    pub fn digests_memo(&self, path: &Path, batch: &RecordBatch, memo: &mut GroupMemo, out: &mut Vec<RowDigest>) -> Result<()> {
+        let enc = self.encoder(path, batch)?;
+        let start = out.len();
+        let mut key = Vec::with_capacity(64);
+        let mut missing = Vec::new();
+        for row in 0..batch.num_rows() {
+            key.clear();
+            enc.key(row, &mut key);
+            match memo.map.get(key.as_slice()) {
+                Some(d) => out.push(*d),
+                None => {
+                    missing.push(row);
+                    out.push([0; 16]);
+                }
+            }
+        }
+        let computed = par_rows(&missing, |row, scratch| enc.digest(row, scratch));
+        for (&row, d) in missing.iter().zip(computed) {
+            out[start + row] = d;
+            if memo.map.len() < GroupMemo::CAPACITY {
+                key.clear();
+                enc.key(row, &mut key);
+                memo.map.insert(key.as_slice().into(), d);
+            }
+        }
+        Ok(())
+    }
+}
+
 /// The group columns of one batch, ready to digest any of its rows.
 pub struct GroupEncoder<'a> {
     key: &'a [u8; 32],
@@ -434,10 +483,15 @@ impl GroupEncoder<'_> {
     pub fn digest(&self, row: usize, scratch: &mut Scratch) -> RowDigest {
         let buf = &mut scratch.exact;
         buf.clear();
-        for e in &self.encoders {
-            e.write(row, buf, false);
-        }
+        self.key(row, buf);
         truncate(blake3::keyed_hash(self.key, buf))
+    }
+
+    /// Appends the canonical encoding of `row`'s group columns.
+    fn key(&self, row: usize, out: &mut Vec<u8>) {
+        for e in &self.encoders {
+            e.write(row, out, false);
+        }
     }
 }
 

@@ -250,10 +250,11 @@ fn digest_partition(
         columns.extend(g.columns().iter().cloned());
     }
     let mut content = Content { rows: Vec::new(), all: Vec::new(), groups: Vec::new(), folds: BTreeMap::new() };
-    let mut batches = table.batches(Some(&columns), false)?;
+    let mut batches = table.batches(Some(&columns), false)?.read_ahead();
     let mut buf = Vec::new();
     let mut group_first: BTreeMap<[u8; 16], u64> = BTreeMap::new();
     let mut group_digests = Vec::new();
+    let mut memo = crate::digest::GroupMemo::default();
     while let Some(batch) = batches.next_batch()? {
         let bound = spec.bind(path, &batch.data.schema())?;
         if !is_test {
@@ -268,7 +269,7 @@ fn digest_partition(
             }
             if let Some(g) = group {
                 group_digests.clear();
-                g.digests(path, &batch.data, &mut group_digests)?;
+                g.digests_memo(path, &batch.data, &mut memo, &mut group_digests)?;
                 for (i, d) in group_digests.iter().enumerate() {
                     group_first.entry(*d).or_insert(batch.first_row + i as u64);
                 }
