@@ -95,8 +95,13 @@ impl Drop for ReadAhead {
     }
 }
 
+/// Builds a batch on the writing thread (taking rows out of a larger batch,
+/// adding columns), so that the sender is free for other work.
+type Build = Box<dyn FnOnce() -> Result<RecordBatch> + Send>;
+
 enum Chunk {
     Batch(RecordBatch),
+    Build(Build),
     Raw(Vec<u8>),
 }
 
@@ -118,6 +123,7 @@ impl PartitionWriter {
             for chunk in rx {
                 match chunk {
                     Chunk::Batch(b) => w.write_batch(&b)?,
+                    Chunk::Build(f) => w.write_batch(&f()?)?,
                     Chunk::Raw(bytes) => w.write_raw(&bytes)?,
                 }
             }
@@ -162,6 +168,15 @@ impl WriterThread {
             return Ok(());
         }
         self.send(Chunk::Batch(batch))
+    }
+
+    /// Queues a batch to be built on the writing thread, then written.
+    ///
+    /// # Errors
+    /// As [`WriterThread::write_batch`]; an error of `build` comes back
+    /// from a later call or from [`WriterThread::finish`].
+    pub fn write_with(&mut self, build: impl FnOnce() -> Result<RecordBatch> + Send + 'static) -> Result<()> {
+        self.send(Chunk::Build(Box::new(build)))
     }
 
     /// Queues raw CSV record bytes.

@@ -50,8 +50,25 @@ pub const ROW_ID: &str = "row_id";
 /// the row number. It depends on the position and the seed only, so it
 /// reveals nothing about the row's label.
 pub fn row_id(seed: u64, test_row: u64) -> String {
-    let key = blake3::derive_key("cleave 2026-12-02 row id v1", &seed.to_le_bytes());
-    digest::hex(&blake3::keyed_hash(&key, &test_row.to_le_bytes()).as_bytes()[..8])
+    RowIds::new(seed).id(test_row)
+}
+
+/// Row ids of one seed (the key derived once).
+#[derive(Clone)]
+pub struct RowIds {
+    key: [u8; 32],
+}
+
+impl RowIds {
+    /// The row ids of a split with this seed.
+    pub fn new(seed: u64) -> Self {
+        RowIds { key: blake3::derive_key("cleave 2026-12-02 row id v1", &seed.to_le_bytes()) }
+    }
+
+    /// The id of test row `test_row` (1-based).
+    pub fn id(&self, test_row: u64) -> String {
+        digest::hex(&blake3::keyed_hash(&self.key, &test_row.to_le_bytes()).as_bytes()[..8])
+    }
 }
 
 /// Everything a split needs, checked by the caller's option parsing.
@@ -263,20 +280,30 @@ fn first_pass(
     let mut batches = table.batches(Some(&needed), false)?;
     let mut digests = Vec::new();
     while let Some(batch) = batches.next_batch()? {
-        if let Some(b) = strata_builder.as_mut() {
-            let arrays: Vec<ArrayRef> =
-                stratify.iter().map(|(s, _)| batch.data.column_by_name(s).expect("projected").clone()).collect();
-            b.push(&arrays)?;
-        }
-        if let (Some(spec), Some(groups)) = (&group_spec, groups.as_mut()) {
-            digests.clear();
-            spec.digests_memo(&cfg.input, &batch.data, &mut memo, &mut digests)?;
-            groups.push(&digests);
-            for (seen, name) in group_seen.iter_mut().zip(group) {
-                let col = batch.data.column_by_name(name).expect("projected");
-                *seen |= !io::all_null(col.as_ref());
+        // Strata and groups side by side.
+        let strata_part = || -> Result<()> {
+            if let Some(b) = strata_builder.as_mut() {
+                let arrays: Vec<ArrayRef> =
+                    stratify.iter().map(|(s, _)| batch.data.column_by_name(s).expect("projected").clone()).collect();
+                b.push(&arrays)?;
             }
-        }
+            Ok(())
+        };
+        let groups_part = || -> Result<()> {
+            if let (Some(spec), Some(groups)) = (&group_spec, groups.as_mut()) {
+                digests.clear();
+                spec.digests_memo(&cfg.input, &batch.data, &mut memo, &mut digests)?;
+                groups.push(&digests);
+                for (seen, name) in group_seen.iter_mut().zip(group) {
+                    let col = batch.data.column_by_name(name).expect("projected");
+                    *seen |= !io::all_null(col.as_ref());
+                }
+            }
+            Ok(())
+        };
+        let (a, b) = rayon::join(strata_part, groups_part);
+        a?;
+        b?;
         if let (Some(column), Some((values, kind))) = (&cfg.order_by, times.as_mut()) {
             *kind = Some(time_values(&cfg.input, &batch, column, values)?);
         }
@@ -507,6 +534,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let mut batches = table.batches(None, raw_csv)?.read_ahead();
     let mut batch_digests = Vec::new();
     let mut test_digests = Vec::new();
+    let row_ids = RowIds::new(cfg.seed);
     while let Some(batch) = batches.next_batch()? {
         let n = batch.data.num_rows();
         let start = (batch.first_row - 1) as usize;
@@ -548,42 +576,30 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
                 test_groups.entry(groups.digests[g as usize]).or_insert(row);
             }
         }
-        // The test rows, taken once for the test file and the hand-off.
-        let mut test_part = None;
-        if batch.raw.is_none() && !test_rows.is_empty() {
-            let take = UInt32Array::from(std::mem::take(&mut indices[test_index]));
-            test_part = Some(
-                arrow_select::take::take_record_batch(&batch.data, &take)
-                    .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?,
-            );
-        }
+        // Rows are taken out of the batch on each file's own thread.
+        let take_rows = |batch: &RecordBatch, rows: Vec<u32>| {
+            let (batch, input) = (batch.clone(), cfg.input.clone());
+            move || {
+                arrow_select::take::take_record_batch(&batch, &UInt32Array::from(rows))
+                    .map_err(|e| Error::malformed(&input, e.to_string()))
+            }
+        };
         if let Some((_, w, keep, hschema, written)) = handoff.as_mut() {
             if !test_rows.is_empty() {
-                let part = match &test_part {
-                    Some(p) => p.clone(),
-                    None => {
-                        let take = UInt32Array::from(indices[test_index].clone());
-                        arrow_select::take::take_record_batch(&batch.data, &take)
-                            .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?
-                    }
-                };
-                let ids: Vec<String> =
-                    (0..part.num_rows()).map(|i| row_id(cfg.seed, *written + i as u64 + 1)).collect();
-                let mut columns: Vec<ArrayRef> = vec![Arc::new(arrow_array::StringArray::from(ids))];
-                columns.extend(keep.iter().map(|&i| part.column(i).clone()));
-                let features = RecordBatch::try_new(hschema.clone(), columns)
-                    .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?;
-                w.write_batch(features)?;
-                *written += part.num_rows() as u64;
+                let take = take_rows(&batch.data, indices[test_index].clone());
+                let (keep, hschema, ids, input) = (keep.clone(), hschema.clone(), row_ids.clone(), cfg.input.clone());
+                let first = *written;
+                w.write_with(move || {
+                    let part = take()?;
+                    let ids: Vec<String> = (0..part.num_rows()).map(|i| ids.id(first + i as u64 + 1)).collect();
+                    let mut columns: Vec<ArrayRef> = vec![Arc::new(arrow_array::StringArray::from(ids))];
+                    columns.extend(keep.iter().map(|&i| part.column(i).clone()));
+                    RecordBatch::try_new(hschema, columns).map_err(|e| Error::malformed(&input, e.to_string()))
+                })?;
+                *written += test_rows.len() as u64;
             }
         }
         for (p, (_, w)) in writers.iter_mut().enumerate() {
-            if p == test_index {
-                if let Some(part) = test_part.take() {
-                    w.write_batch(part)?;
-                    continue;
-                }
-            }
             if indices[p].is_empty() {
                 continue;
             }
@@ -605,16 +621,19 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             } else {
                 let fold_values: Option<Vec<i64>> =
                     fold_of(0).map(|_| indices[p].iter().map(|&i| fold_of(i).expect("dev row") as i64).collect());
-                let take = UInt32Array::from(std::mem::take(&mut indices[p]));
-                let mut part = arrow_select::take::take_record_batch(&batch.data, &take)
-                    .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?;
-                if let Some(values) = fold_values {
-                    let mut columns = part.columns().to_vec();
-                    columns.push(Arc::new(Int64Array::from(values)));
-                    part = RecordBatch::try_new(fold_schema.clone(), columns)
-                        .map_err(|e| Error::malformed(&cfg.input, e.to_string()))?;
-                }
-                w.write_batch(part)?;
+                let take = take_rows(&batch.data, std::mem::take(&mut indices[p]));
+                let (fold_schema, input) = (fold_schema.clone(), cfg.input.clone());
+                w.write_with(move || {
+                    let part = take()?;
+                    match fold_values {
+                        None => Ok(part),
+                        Some(values) => {
+                            let mut columns = part.columns().to_vec();
+                            columns.push(Arc::new(Int64Array::from(values)));
+                            RecordBatch::try_new(fold_schema, columns).map_err(|e| Error::malformed(&input, e.to_string()))
+                        }
+                    }
+                })?;
             }
         }
     }
