@@ -118,7 +118,14 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, shareable
         }
         let file = loaded.file(&part.file);
         files_checked += 1;
-        let summary = match io::hash_file(&file) {
+        let is_test = part.name == Partition::Test;
+        let fold_column = m.folds.as_ref().filter(|_| !is_test).map(|f| f.column.as_str());
+        // The file's hash and its rows' digests side by side.
+        let (hashed, content) = rayon::join(
+            || io::hash_file(&file),
+            || redigest.then(|| digest_partition(&file, part.format, &hints, &spec, group_spec.as_ref(), fold_column, is_test)),
+        );
+        let summary = match hashed {
             Ok(s) => s,
             Err(_) => {
                 problem(&part.file, format!("the {} partition file is missing or unreadable", part.name));
@@ -131,12 +138,10 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, shareable
         if summary.blake3 != part.blake3 {
             problem(&part.file, format!("BLAKE3 is {}, the seal says {}", summary.blake3, part.blake3));
         }
-        if !redigest {
+        let Some(content) = content else {
             continue;
-        }
-        let is_test = part.name == Partition::Test;
-        let fold_column = m.folds.as_ref().filter(|_| !is_test).map(|f| f.column.as_str());
-        match digest_partition(&file, part.format, &hints, &spec, group_spec.as_ref(), fold_column, is_test) {
+        };
+        match content {
             Ok(Content { mut rows, all, groups, folds }) => {
                 rows_checked += rows.len() as u64;
                 if fold_column.is_some() && !part.folds.is_empty() && folds != part.folds {

@@ -589,7 +589,8 @@ pub fn require_supported(path: &Path, field: &Field) -> Result<ColumnType> {
 pub fn hash_file(path: &Path) -> Result<FileSummary> {
     let mut file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
     let mut hasher = blake3::Hasher::new();
-    let mut buf = vec![0u8; 1 << 20];
+    // Large reads, hashed across threads (BLAKE3 is a tree: the same hash).
+    let mut buf = vec![0u8; 8 << 20];
     let mut bytes = 0u64;
     loop {
         let n = match file.read(&mut buf) {
@@ -598,7 +599,7 @@ pub fn hash_file(path: &Path) -> Result<FileSummary> {
             Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
             Err(e) => return Err(Error::io(path, "cannot read", e)),
         };
-        hasher.update(&buf[..n]);
+        hasher.update_rayon(&buf[..n]);
         bytes += n as u64;
     }
     Ok(FileSummary { bytes, blake3: hasher.finalize().to_hex().to_string() })
