@@ -1,23 +1,26 @@
-//! The read floor for benchmarks: reads tables once with cleave's own
-//! readers, every column decoded, and does nothing with the rows.
+//! The read floor for benchmarks: reads every partition of a split once
+//! with cleave's own readers, the way `verify` reads them (column types
+//! from the manifest, every column decoded), and does nothing with the rows.
 //!
 //! ```text
-//! cargo run --release --example read_floor -- FILE...
+//! cargo run --release --example read_floor -- SPLIT_FOLDER
 //! ```
 
 use std::path::PathBuf;
 
-use cleave::io::{Format, Table, TypeHints};
+use cleave::io::{Table, TypeHints};
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {
-    let files: Vec<PathBuf> = std::env::args().skip(1).map(PathBuf::from).collect();
-    if files.is_empty() {
-        return Err("usage: read_floor FILE...".into());
-    }
+    let args: Vec<String> = std::env::args().skip(1).collect();
+    let [folder] = args.as_slice() else {
+        return Err("usage: read_floor SPLIT_FOLDER".into());
+    };
+    let loaded = cleave::manifest::load(&PathBuf::from(folder))?;
+    let m = &loaded.manifest;
+    let hints: TypeHints = m.source.columns.iter().map(|c| (c.name.clone(), c.column_type)).collect();
     let mut rows = 0u64;
-    for file in &files {
-        let format = Format::from_path(file).ok_or("unknown format")?;
-        let table = Table::open(file, format, &TypeHints::new())?;
+    for part in &m.partitions {
+        let table = Table::open(&loaded.file(&part.file), part.format, &hints)?;
         let mut batches = table.batches(None, false)?;
         while batches.next_batch()?.is_some() {}
         rows += batches.rows();

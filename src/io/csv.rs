@@ -481,27 +481,38 @@ impl CsvReader {
             return Ok(None);
         }
         let width = self.names.len();
-        let mut builders: Vec<ColumnBuilder> =
-            self.columns.iter().map(|&i| ColumnBuilder::new(self.types[i], self.batch_rows)).collect();
+        // Tokenising is sequential; the fields are gathered per batch and
+        // typed column by column across threads.
+        let mut text: Vec<u8> = Vec::with_capacity(self.batch_rows.min(1 << 16) * 64);
+        let mut starts: Vec<usize> = Vec::with_capacity(self.batch_rows.min(1 << 16) * (width + 1));
         let mut raw_ends = Vec::new();
         let mut lines = Vec::with_capacity(self.batch_rows.min(1 << 16));
         let mut rows = 0usize;
+        // A malformed record ends the batch; bad fields before it are
+        // reported first, so the error is always the first in the file.
+        let mut stopped = None;
         while rows < self.batch_rows {
-            if !self.tok.next_record(&mut self.rec)? {
-                self.done = true;
-                break;
+            match self.tok.next_record(&mut self.rec).and_then(|more| {
+                if more {
+                    check_width(&self.tok, &self.rec, width)?;
+                }
+                Ok(more)
+            }) {
+                Ok(true) => {}
+                Ok(false) => {
+                    self.done = true;
+                    break;
+                }
+                Err(e) => {
+                    self.done = true;
+                    stopped = Some(e);
+                    break;
+                }
             }
-            check_width(&self.tok, &self.rec, width)?;
-            for (b, &i) in builders.iter_mut().zip(&self.columns) {
-                let text = field_str(&self.tok, &self.rec, i, &self.names)?;
-                b.push(text).map_err(|expected| Error::Malformed {
-                    path: self.tok.path.clone(),
-                    line: Some(self.rec.line),
-                    row: None,
-                    column: Some(self.names[i].clone()),
-                    what: format!("`{}` is not {expected}", value::shorten(text)),
-                })?;
-            }
+            let base = text.len();
+            text.extend_from_slice(&self.rec.text);
+            starts.push(base);
+            starts.extend(self.rec.ends.iter().map(|&e| base + e));
             if let Some(raw) = self.tok.raw.as_ref() {
                 raw_ends.push(raw.len());
             }
@@ -509,9 +520,49 @@ impl CsvReader {
             rows += 1;
         }
         if rows == 0 {
-            return Ok(None);
+            return match stopped {
+                Some(e) => Err(e),
+                None => Ok(None),
+            };
         }
-        let arrays: Vec<ArrayRef> = builders.into_iter().map(ColumnBuilder::finish).collect();
+        // Field i of row r spans starts[r * (width + 1) + i .. + 1].
+        let field = |r: usize, i: usize| {
+            let at = r * (width + 1) + i;
+            &text[starts[at]..starts[at + 1]]
+        };
+        use rayon::prelude::*;
+        let typed: Vec<std::result::Result<ArrayRef, (usize, String)>> = self
+            .columns
+            .par_iter()
+            .map(|&i| {
+                let mut b = ColumnBuilder::new(self.types[i], rows);
+                for r in 0..rows {
+                    let t = std::str::from_utf8(field(r, i))
+                        .map_err(|e| (r, format!("invalid UTF-8 at byte {} of the field", e.valid_up_to())))?;
+                    b.push(t).map_err(|expected| (r, format!("`{}` is not {expected}", value::shorten(t))))?;
+                }
+                Ok(b.finish())
+            })
+            .collect();
+        // The first bad field in file order: earliest row, then column order.
+        if let Some((j, (r, what))) = typed
+            .iter()
+            .enumerate()
+            .filter_map(|(j, t)| t.as_ref().err().map(|e| (j, e)))
+            .min_by_key(|(j, (r, _))| (*r, *j))
+        {
+            return Err(Error::Malformed {
+                path: self.tok.path.clone(),
+                line: Some(lines[*r]),
+                row: None,
+                column: Some(self.names[self.columns[j]].clone()),
+                what: what.clone(),
+            });
+        }
+        if let Some(e) = stopped {
+            return Err(e);
+        }
+        let arrays: Vec<ArrayRef> = typed.into_iter().map(|t| t.expect("errors handled above")).collect();
         let batch = RecordBatch::try_new_with_options(
             self.schema.clone(),
             arrays,
