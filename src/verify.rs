@@ -257,7 +257,7 @@ fn digest_partition(
     let mut content = Content { rows: Vec::new(), all: Vec::new(), groups: Vec::new(), folds: BTreeMap::new() };
     let mut batches = table.batches(Some(&columns), false)?.read_ahead();
     let mut buf = Vec::new();
-    let mut group_first: BTreeMap<[u8; 16], u64> = BTreeMap::new();
+    let mut group_first: crate::digest::DigestMap<u64> = Default::default();
     let mut group_digests = Vec::new();
     let mut memo = crate::digest::GroupMemo::default();
     while let Some(batch) = batches.next_batch()? {
@@ -294,5 +294,6 @@ fn digest_partition(
         }
     }
     content.groups = group_first.into_iter().collect();
+    content.groups.sort_unstable();
     Ok(content)
 }

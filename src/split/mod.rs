@@ -526,7 +526,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     }
     let mut digests: Vec<Vec<RowDigest>> = totals.iter().map(|&t| Vec::with_capacity(t as usize)).collect();
     let mut test_seal: Vec<(RowDigests, u64)> = Vec::with_capacity(totals[test_index] as usize);
-    let mut test_groups: BTreeMap<RowDigest, u64> = BTreeMap::new();
+    let mut test_groups: digest::DigestMap<u64> = digest::DigestMap::default();
     let mut fold_counts: Vec<BTreeMap<u32, u64>> = vec![BTreeMap::new(); k];
     let mut time_ranges: Vec<Option<(i64, i64)>> = vec![None; k];
     // Decoding, digesting and each file's encoding run on threads of their
@@ -716,6 +716,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         }
         None => None,
     };
+    // Any order: the seal file sorts its records.
     let test_group_records: Vec<seal::SealRecord> = test_groups.into_iter().collect();
     let seal_files =
         write_seal(&staging.path, &test_seal, facts.groups.as_ref().map(|_| test_group_records.as_slice()))?;
