@@ -355,6 +355,54 @@ impl Candidates {
 /// # Errors
 /// The first structural problem, with its line.
 pub fn infer(path: &Path, known: &dyn Fn(&str) -> Option<ColumnType>) -> Result<(Vec<String>, Vec<ColumnType>)> {
+    infer_keeping(path, known, None).map(|(names, types, _)| (names, types))
+}
+
+/// The text of some columns of every row, kept by the inference pass so
+/// that a split's first pass need not read the file again: about the
+/// columns' bytes plus 8 bytes per row and column, and each row's line.
+pub struct KeptText {
+    /// Column names, in the order asked for.
+    pub names: Vec<String>,
+    /// Per column: the concatenated field texts and each row's end offset.
+    columns: Vec<(Vec<u8>, Vec<u64>)>,
+    /// Each row's file line.
+    pub lines: Vec<u64>,
+}
+
+impl KeptText {
+    /// Number of rows.
+    pub fn rows(&self) -> usize {
+        self.lines.len()
+    }
+
+    /// Rows `lo..hi` of column `c` as text (empty fields as empty text,
+    /// which the CSV types read as null).
+    pub fn text(&self, c: usize, lo: usize, hi: usize) -> arrow_array::StringArray {
+        let (bytes, ends) = &self.columns[c];
+        let start = if lo == 0 { 0 } else { ends[lo - 1] };
+        let values = bytes[start as usize..ends[hi - 1] as usize].to_vec();
+        let offsets: Vec<i32> =
+            std::iter::once(0).chain(ends[lo..hi].iter().map(|&e| (e - start) as i32)).collect();
+        arrow_array::StringArray::new(
+            arrow_buffer::OffsetBuffer::new(offsets.into()),
+            values.into(),
+            None,
+        )
+    }
+}
+
+/// As [`infer`]; with `keep`, also keeps each row's line and the text of
+/// the columns named there (those the file has). Nothing is kept when every
+/// type is known (no rows are read then).
+///
+/// # Errors
+/// As [`infer`].
+pub fn infer_keeping(
+    path: &Path,
+    known: &dyn Fn(&str) -> Option<ColumnType>,
+    keep: Option<&[String]>,
+) -> Result<(Vec<String>, Vec<ColumnType>, Option<KeptText>)> {
     let mut tok = Tokenizer::new(path, open(path)?, false);
     let names = read_header(&mut tok)?;
     let width = names.len();
@@ -362,8 +410,17 @@ pub fn infer(path: &Path, known: &dyn Fn(&str) -> Option<ColumnType>) -> Result<
     if fixed.iter().all(Option::is_some) {
         // Every type is known (a partition re-read with the sealed schema):
         // no scan; the reading pass checks the structure as it goes.
-        return Ok((names, fixed.into_iter().map(|t| t.expect("all known")).collect()));
+        return Ok((names, fixed.into_iter().map(|t| t.expect("all known")).collect(), None));
     }
+    let mut kept_at: Vec<usize> =
+        keep.unwrap_or_default().iter().filter_map(|k| names.iter().position(|n| n == k)).collect();
+    kept_at.sort_unstable();
+    kept_at.dedup();
+    let mut kept = keep.map(|_| KeptText {
+        names: kept_at.iter().map(|&i| names[i].clone()).collect(),
+        columns: vec![(Vec::new(), Vec::new()); kept_at.len()],
+        lines: Vec::new(),
+    });
     let mut cands = vec![Candidates::ALL; width];
     let mut rec = Record::default();
     while tok.next_record(&mut rec)? {
@@ -374,9 +431,17 @@ pub fn infer(path: &Path, known: &dyn Fn(&str) -> Option<ColumnType>) -> Result<
                 cands[i].observe(text);
             }
         }
+        if let Some(k) = kept.as_mut() {
+            for (c, &i) in kept_at.iter().enumerate() {
+                let (bytes, ends) = &mut k.columns[c];
+                bytes.extend_from_slice(rec.field(i));
+                ends.push(bytes.len() as u64);
+            }
+            k.lines.push(rec.line);
+        }
     }
     let types = fixed.iter().zip(&cands).map(|(f, c)| f.unwrap_or_else(|| c.resolve())).collect();
-    Ok((names, types))
+    Ok((names, types, kept))
 }
 
 /// The Arrow schema cleave uses for CSV columns of the given types.

@@ -25,7 +25,7 @@ use arrow_array::{Array, RecordBatch, StringArray};
 use arrow_schema::{DataType, Field, Schema, SchemaRef, TimeUnit};
 use parquet::arrow::arrow_reader::{ArrowReaderMetadata, ParquetRecordBatchReader, ParquetRecordBatchReaderBuilder};
 
-pub use self::csv::RawRows;
+pub use self::csv::{KeptText, RawRows};
 pub use self::pipe::{ReadAhead, WriterThread};
 pub use self::write::{write_small, FileSummary, PartitionWriter};
 use crate::error::{Error, Result};
@@ -242,6 +242,21 @@ impl Table {
     /// # Errors
     /// Unreadable, empty or malformed files.
     pub fn open(path: &Path, format: Format, hints: &TypeHints) -> Result<Table> {
+        Table::open_keeping(path, format, hints, None).map(|(t, _)| t)
+    }
+
+    /// As [`Table::open`]; for CSV with `keep`, the inference pass also
+    /// keeps every row's line and the text of the columns named there (see
+    /// [`KeptText`]); `None` for other formats and when nothing was read.
+    ///
+    /// # Errors
+    /// As [`Table::open`].
+    pub fn open_keeping(
+        path: &Path,
+        format: Format,
+        hints: &TypeHints,
+        keep: Option<&[String]>,
+    ) -> Result<(Table, Option<KeptText>)> {
         let meta = std::fs::metadata(path).map_err(|e| Error::io(path, "cannot open", e))?;
         if meta.is_dir() {
             return Err(Error::malformed(path, "is a folder, not a file"));
@@ -249,9 +264,11 @@ impl Table {
         if meta.len() == 0 {
             return Err(Error::malformed(path, "the file is empty"));
         }
+        let mut kept = None;
         let (schema, csv_types) = match format {
             Format::Csv => {
-                let (names, types) = csv::infer(path, &|name| hints.get(name).copied())?;
+                let (names, types, k) = csv::infer_keeping(path, &|name| hints.get(name).copied(), keep)?;
+                kept = k;
                 (csv::schema_for(&names, &types), types)
             }
             Format::Parquet => {
@@ -281,7 +298,7 @@ impl Table {
         };
         let table = Table { path: path.to_path_buf(), format, schema, csv_types };
         table.check_names()?;
-        Ok(table)
+        Ok((table, kept))
     }
 
     fn check_names(&self) -> Result<()> {
@@ -378,6 +395,33 @@ impl Table {
             }
         };
         Ok(Batches { path: self.path.clone(), format, inner, rows: 0 })
+    }
+
+    /// The kept CSV text as batches of the columns' inferred types, as
+    /// [`Table::batches`] would give them with that projection.
+    ///
+    /// # Errors
+    /// None in practice: the text was read and typed by the inference pass.
+    pub fn kept_batch(&self, kept: &KeptText, lo: usize, hi: usize) -> Result<Batch> {
+        let mut fields = Vec::new();
+        let mut columns = Vec::new();
+        for (c, name) in kept.names.iter().enumerate() {
+            let i = self.column_index(name)?;
+            let t = self.csv_types[i];
+            let text = kept.text(c, lo, hi);
+            let typed = csv::parse_text_column(&text, t).map_err(|(r, expected)| {
+                Error::at_line(&self.path, kept.lines[lo + r], format!("column `{name}`: not {expected}"))
+            })?;
+            fields.push(self.schema.field(i).clone());
+            columns.push(typed);
+        }
+        let data = RecordBatch::try_new_with_options(
+            Arc::new(Schema::new(fields)),
+            columns,
+            &arrow_array::RecordBatchOptions::new().with_row_count(Some(hi - lo)),
+        )
+        .map_err(|e| Error::malformed(&self.path, e.to_string()))?;
+        Ok(Batch { data, raw: None, first_row: lo as u64 + 1, lines: Some(kept.lines[lo..hi].to_vec()) })
     }
 
     /// The CSV header line to write at the top of a verbatim CSV partition.

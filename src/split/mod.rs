@@ -255,6 +255,7 @@ struct RowFacts {
 fn first_pass(
     cfg: &SplitConfig,
     table: &Table,
+    kept: Option<io::KeptText>,
     format: Format,
     stratify: &[(String, ColumnType)],
     group: &[String],
@@ -277,9 +278,28 @@ fn first_pass(
     let mut group_seen = vec![false; group.len()];
     let mut times: Option<(Vec<i64>, Option<TimeKind>)> = cfg.order_by.as_ref().map(|_| (Vec::new(), None));
     let mut stable_keys = stable_rows.then(Vec::new);
-    let mut batches = table.batches(Some(&needed), false)?;
+    // The rows come from the kept CSV text or from a reading pass.
+    let mut batches = match &kept {
+        Some(_) => None,
+        None => Some(table.batches(Some(&needed), false)?.read_ahead()),
+    };
+    let mut kept_at = 0usize;
+    let mut next_batch = || -> Result<Option<io::Batch>> {
+        match (&mut batches, &kept) {
+            (Some(b), _) => b.next_batch(),
+            (None, Some(k)) if kept_at < k.rows() => {
+                let hi = (kept_at + io::BATCH_ROWS).min(k.rows());
+                let batch = table.kept_batch(k, kept_at, hi)?;
+                kept_at = hi;
+                Ok(Some(batch))
+            }
+            (None, _) => Ok(None),
+        }
+    };
     let mut digests = Vec::new();
-    while let Some(batch) = batches.next_batch()? {
+    let mut rows = 0u64;
+    while let Some(batch) = next_batch()? {
+        rows += batch.data.num_rows() as u64;
         // Strata and groups side by side.
         let strata_part = || -> Result<()> {
             if let Some(b) = strata_builder.as_mut() {
@@ -311,7 +331,6 @@ fn first_pass(
             spec.bind(&cfg.input, &batch.data.schema())?.row_digests(&batch.data, keys)?;
         }
     }
-    let rows = batches.rows();
     if rows == 0 {
         return Err(Error::malformed(&cfg.input, "has a header but no data rows"));
     }
@@ -375,7 +394,13 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let _lock = OutputLock::take(&cfg.out)?;
     let format = Format::resolve(&cfg.input, cfg.format)?;
     let output_format = cfg.output_format.unwrap_or(format);
-    let table = Table::open(&cfg.input, format, &TypeHints::new())?;
+    // CSV: the type-inference pass also keeps the columns pass one needs,
+    // so the file is read twice in all, not three times.
+    let mut pass_one_columns: Vec<String> = cfg.stratify.iter().chain(&cfg.group).chain(&cfg.order_by).cloned().collect();
+    pass_one_columns.sort();
+    pass_one_columns.dedup();
+    let keep = (format == Format::Csv && !(cfg.stable && cfg.group.is_empty())).then_some(pass_one_columns.as_slice());
+    let (table, kept) = Table::open_keeping(&cfg.input, format, &TypeHints::new(), keep)?;
     let schema = table.schema();
 
     let label = resolve_columns(&table, &cfg.label)?;
@@ -414,7 +439,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     }
 
     // Pass one: what decides every row's partition.
-    let facts = first_pass(cfg, &table, format, &stratify_types, &group, &spec)?;
+    let facts = first_pass(cfg, &table, kept, format, &stratify_types, &group, &spec)?;
     let rows = facts.rows;
     let strata = &facts.strata;
     let partitions = cfg.ratios.partitions().to_vec();
