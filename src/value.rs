@@ -337,7 +337,9 @@ fn short_decimal(v: f64) -> Option<(u64, usize)> {
         }
         // Any integer next to x will do: the test below accepts only n.
         let n = (x + 0.5) as u64;
-        if n as f64 / p == a {
+        // A decimal that reads back as v lies within about 3e-16 x of x, so
+        // one further away needs no division to be ruled out.
+        if (x - n as f64).abs() <= x * 1e-9 && n as f64 / p == a {
             return Some((n, k));
         }
     }
