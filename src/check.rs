@@ -469,7 +469,7 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
             }
             if groups_ok {
                 group_digests.clear();
-                seal.group_spec.as_ref().expect("groups").digests_memo(path, &conformed.data, &mut memo, &mut group_digests)?;
+                seal.group_spec.as_ref().expect("groups").digests(path, &conformed.data, &mut memo, &mut group_digests)?;
                 let sealed = seal.groups.as_ref().expect("groups seal");
                 let hits = digest::par_rows(&all, |i, _| {
                     let d = group_digests[i];

@@ -411,16 +411,6 @@ impl GroupSpec {
         Ok(GroupEncoder { key: &self.key, encoders })
     }
 
-    /// The group digest of each row of a batch, appended to `out`.
-    ///
-    /// # Errors
-    /// Missing columns and types that cannot be encoded.
-    pub fn digests(&self, path: &Path, batch: &RecordBatch, out: &mut Vec<RowDigest>) -> Result<()> {
-        let enc = self.encoder(path, batch)?;
-        let rows: Vec<usize> = (0..batch.num_rows()).collect();
-        out.extend(par_rows(&rows, |row, scratch| enc.digest(row, scratch)));
-        Ok(())
-    }
 }
 
 /// Group digests already computed, by the group's encoded key: entities
@@ -438,12 +428,13 @@ impl GroupMemo {
 }
 
 impl GroupSpec {
-    /// As [`GroupSpec::digests`], taking digests of groups seen before from
-    /// `memo` and computing the others in parallel.
+    /// The group digest of each row of a batch, appended to `out`: digests
+    /// of groups seen before come from `memo`, the others are computed in
+    /// parallel.
     ///
     /// # Errors
-    /// As [`GroupSpec::digests`].
-    pub fn digests_memo(&self, path: &Path, batch: &RecordBatch, memo: &mut GroupMemo, out: &mut Vec<RowDigest>) -> Result<()> {
+    /// Missing columns and types that cannot be encoded.
+    pub fn digests(&self, path: &Path, batch: &RecordBatch, memo: &mut GroupMemo, out: &mut Vec<RowDigest>) -> Result<()> {
         let enc = self.encoder(path, batch)?;
         let start = out.len();
         let mut key = Vec::with_capacity(64);
@@ -495,16 +486,6 @@ impl GroupEncoder<'_> {
     }
 }
 
-/// The canonical encoding of one value, as bytes (for tests and one-off keys).
-///
-/// # Errors
-/// Types that cannot be encoded.
-pub fn encode_value(array: &ArrayRef, row: usize, name: &str) -> Result<Vec<u8>> {
-    let mut out = Vec::new();
-    Encoder::new(array, name)?.write(row, &mut out, false);
-    Ok(out)
-}
-
 /// One column of one batch, encoding value after value (stratum keys).
 pub struct ValueEncoder(Encoder);
 
@@ -530,11 +511,10 @@ pub struct DigestBits(u64);
 
 impl std::hash::Hasher for DigestBits {
     fn write(&mut self, bytes: &[u8]) {
-        for chunk in bytes.chunks(8) {
-            let mut word = [0u8; 8];
-            word[..chunk.len()].copy_from_slice(chunk);
-            self.0 = self.0.rotate_left(5) ^ u64::from_le_bytes(word);
-        }
+        let mut word = [0u8; 8];
+        let n = bytes.len().min(8);
+        word[..n].copy_from_slice(&bytes[..n]);
+        self.0 = u64::from_le_bytes(word);
     }
 
     fn write_usize(&mut self, _: usize) {

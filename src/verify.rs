@@ -274,7 +274,7 @@ fn digest_partition(
             }
             if let Some(g) = group {
                 group_digests.clear();
-                g.digests_memo(path, &batch.data, &mut memo, &mut group_digests)?;
+                g.digests(path, &batch.data, &mut memo, &mut group_digests)?;
                 for (i, d) in group_digests.iter().enumerate() {
                     group_first.entry(*d).or_insert(batch.first_row + i as u64);
                 }

@@ -265,13 +265,18 @@ fn check_width(tok: &Tokenizer<impl Read>, rec: &Record, width: usize) -> Result
     ))
 }
 
+/// A field's text; what is wrong with it when it is not UTF-8.
+fn utf8(bytes: &[u8]) -> std::result::Result<&str, String> {
+    std::str::from_utf8(bytes).map_err(|e| format!("invalid UTF-8 at byte {} of the field", e.valid_up_to()))
+}
+
 fn field_str<'a>(tok: &Tokenizer<impl Read>, rec: &'a Record, i: usize, names: &[String]) -> Result<&'a str> {
-    std::str::from_utf8(rec.field(i)).map_err(|e| Error::Malformed {
+    utf8(rec.field(i)).map_err(|what| Error::Malformed {
         path: tok.path.clone(),
         line: Some(rec.line),
         row: None,
         column: Some(names[i].clone()),
-        what: format!("invalid UTF-8 at byte {} of the field", e.valid_up_to()),
+        what,
     })
 }
 
@@ -602,8 +607,7 @@ impl CsvReader {
             .map(|&i| {
                 let mut b = ColumnBuilder::new(self.types[i], rows);
                 for r in 0..rows {
-                    let t = std::str::from_utf8(field(r, i))
-                        .map_err(|e| (r, format!("invalid UTF-8 at byte {} of the field", e.valid_up_to())))?;
+                    let t = utf8(field(r, i)).map_err(|what| (r, what))?;
                     b.push(t).map_err(|expected| (r, format!("`{}` is not {expected}", value::shorten(t))))?;
                 }
                 Ok(b.finish())

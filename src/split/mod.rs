@@ -312,7 +312,7 @@ fn first_pass(
         let groups_part = || -> Result<()> {
             if let (Some(spec), Some(groups)) = (&group_spec, groups.as_mut()) {
                 digests.clear();
-                spec.digests_memo(&cfg.input, &batch.data, &mut memo, &mut digests)?;
+                spec.digests(&cfg.input, &batch.data, &mut memo, &mut digests)?;
                 groups.push(&digests);
                 for (seen, name) in group_seen.iter_mut().zip(group) {
                     let col = batch.data.column_by_name(name).expect("projected");

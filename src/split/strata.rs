@@ -66,6 +66,17 @@ fn display(array: &ArrayRef, row: usize) -> String {
     arrow_cast::display::array_value_to_string(array, row).unwrap_or_else(|_| "?".into())
 }
 
+/// The id of `key` in `map`, numbered by first appearance; a new key is
+/// stored with `new(id)`.
+fn intern<V>(map: &mut HashMap<Vec<u8>, V>, key: &[u8], id_of: impl Fn(&V) -> u32, new: impl FnOnce(u32) -> V) -> u32 {
+    if let Some(v) = map.get(key) {
+        return id_of(v);
+    }
+    let id = map.len() as u32;
+    map.insert(key.to_vec(), new(id));
+    id
+}
+
 impl StrataBuilder {
     /// A builder for the given columns and their types.
     pub fn new(columns: &[(String, ColumnType)], bins: usize) -> Self {
@@ -102,16 +113,10 @@ impl StrataBuilder {
                     for row in 0..array.len() {
                         key.clear();
                         encoder.write(row, &mut key);
-                        let id = match ids.get(key.as_slice()) {
-                            Some(&id) => id,
-                            None => {
-                                let id = ids.len() as u32;
-                                ids.insert(key.clone(), id);
-                                labels.push(display(array, row));
-                                id
-                            }
-                        };
-                        codes.push(id);
+                        codes.push(intern(ids, &key, |&id| id, |id| {
+                            labels.push(display(array, row));
+                            id
+                        }));
                     }
                 }
                 Column::Numeric { name, values, distinct, keys, codes } => {
@@ -135,15 +140,7 @@ impl StrataBuilder {
                             }
                             key.clear();
                             encoder.write(row, &mut key);
-                            let id = match keys.get(key.as_slice()) {
-                                Some(&(id, _)) => id,
-                                None => {
-                                    let id = keys.len() as u32;
-                                    keys.insert(key.clone(), (id, display(array, row)));
-                                    id
-                                }
-                            };
-                            codes.push(id);
+                            codes.push(intern(keys, &key, |v| v.0, |id| (id, display(array, row))));
                         }
                     }
                 }

@@ -22,7 +22,6 @@
 //!   keyed BLAKE3 hash of its digest and the seed, so it never moves when other
 //!   rows come or go; shares are then approximate.
 
-
 use arrow_array::cast::AsArray;
 use arrow_array::types::{
     Date32Type, Int64Type, TimestampMicrosecondType, TimestampMillisecondType, TimestampNanosecondType,
