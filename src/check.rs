@@ -450,8 +450,8 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
                 let rows_seal = seal.rows.as_ref().filter(|_| rows_ok);
                 // Lookups apart from hashing: a tight loop of independent
                 // loads lets the processor wait for many cache misses at once.
-                let digests = digest::par_rows(&all, |i, scratch| enc.all(i, scratch));
-                let hits = digest::par_rows(&all, |i, _| {
+                let digests = digest::par_chunks(&all, |rows, scratch, out| enc.all(rows, scratch, out));
+                let hits = digest::par_rows(&all, |i| {
                     let d = &digests[i];
                     [
                         rows_seal.and_then(|s| s.get(&d.row)),
@@ -471,7 +471,7 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
                 group_digests.clear();
                 seal.group_spec.as_ref().expect("groups").digests(path, &conformed.data, &mut memo, &mut group_digests)?;
                 let sealed = seal.groups.as_ref().expect("groups seal");
-                let hits = digest::par_rows(&all, |i, _| {
+                let hits = digest::par_rows(&all, |i| {
                     let d = group_digests[i];
                     sealed.get(&d).map(|t| (d, t))
                 });

@@ -32,6 +32,7 @@
 //! - Content digest of a set of rows: BLAKE3 in derive-key mode with the
 //!   content context over the sorted 16-byte row digests, all 256 bits.
 
+use std::ops::Range;
 use std::path::Path;
 
 use arrow_array::cast::AsArray;
@@ -45,6 +46,7 @@ use arrow_schema::{DataType, Schema, TimeUnit};
 
 use crate::error::{Error, Result};
 use crate::io::require_supported;
+use crate::lanes;
 use crate::value;
 
 /// Name of the row encoding, recorded in the manifest.
@@ -251,17 +253,15 @@ pub struct RowDigests {
     pub loose: RowDigest,
 }
 
-fn truncate(h: blake3::Hash) -> RowDigest {
-    let mut d = [0u8; 16];
-    d.copy_from_slice(&h.as_bytes()[..16]);
-    d
-}
-
 /// Reused buffers for encoding rows, one per thread.
 #[derive(Default)]
 pub struct Scratch {
     exact: Vec<u8>,
     loose: Vec<u8>,
+    /// Where each row's bytes lie: features, the whole row, loose.
+    ranges: [Vec<Range<usize>>; 3],
+    /// Digests of a chunk of rows before they are put together.
+    digests: [Vec<RowDigest>; 3],
 }
 
 /// The key columns of one batch, ready to digest any of its rows; shared
@@ -272,55 +272,80 @@ pub struct BatchEncoder<'a> {
 }
 
 impl BatchEncoder<'_> {
-    /// The row digest of `row`.
-    pub fn row(&self, row: usize, scratch: &mut Scratch) -> RowDigest {
-        let buf = &mut scratch.exact;
+    /// The row digests of `rows`, appended to `out` in that order. The rows
+    /// are encoded end to end and hashed side by side ([`lanes`]).
+    pub fn rows(&self, rows: &[usize], scratch: &mut Scratch, out: &mut Vec<RowDigest>) {
+        let Scratch { exact: buf, ranges, .. } = scratch;
+        let ranges = &mut ranges[1];
         buf.clear();
-        for e in &self.encoders {
-            e.write(row, buf, false);
+        ranges.clear();
+        for &row in rows {
+            let start = buf.len();
+            for e in &self.encoders {
+                e.write(row, buf, false);
+            }
+            ranges.push(start..buf.len());
         }
-        truncate(blake3::keyed_hash(&self.spec.row_key, buf))
+        lanes::keyed_many(&self.spec.row_key, buf, ranges, out);
     }
 
-    /// All three digests of `row`, from one encoding: the features digest
-    /// is the row digest's hash state before the labels, and the loose
-    /// encoding is derived from the exact bytes.
-    pub fn all(&self, row: usize, scratch: &mut Scratch) -> RowDigests {
+    /// All three digests of `rows`, appended to `out` in that order, from
+    /// one encoding of each row: the features digest hashes the row's bytes
+    /// before the labels, and the loose encoding is derived from the exact
+    /// bytes.
+    pub fn all(&self, rows: &[usize], scratch: &mut Scratch, out: &mut Vec<RowDigests>) {
         let n_features = self.spec.features.len();
-        let Scratch { exact: buf, loose } = scratch;
+        let Scratch { exact: buf, loose, ranges, digests } = scratch;
         buf.clear();
         loose.clear();
-        for e in &self.encoders[..n_features] {
-            let start = buf.len();
-            e.write(row, buf, false);
-            e.loosen(row, &buf[start..], loose);
+        for r in ranges.iter_mut() {
+            r.clear();
         }
-        let features_end = buf.len();
-        for e in &self.encoders[n_features..] {
-            e.write(row, buf, false);
+        for &row in rows {
+            let (start, loose_start) = (buf.len(), loose.len());
+            for e in &self.encoders[..n_features] {
+                let at = buf.len();
+                e.write(row, buf, false);
+                e.loosen(row, &buf[at..], loose);
+            }
+            ranges[0].push(start..buf.len());
+            for e in &self.encoders[n_features..] {
+                e.write(row, buf, false);
+            }
+            ranges[1].push(start..buf.len());
+            ranges[2].push(loose_start..loose.len());
         }
-        let mut h = blake3::Hasher::new_keyed(&self.spec.row_key);
-        h.update(&buf[..features_end]);
-        let features = truncate(h.finalize());
-        let row_digest = if features_end == buf.len() {
-            features
-        } else {
-            h.update(&buf[features_end..]);
-            truncate(h.finalize())
-        };
-        RowDigests { row: row_digest, features, loose: truncate(blake3::keyed_hash(&self.spec.loose_key, loose)) }
+        for d in digests.iter_mut() {
+            d.clear();
+        }
+        let [features, whole, loosened] = digests;
+        lanes::keyed_many(&self.spec.row_key, buf, &ranges[0], features);
+        if n_features < self.encoders.len() {
+            lanes::keyed_many(&self.spec.row_key, buf, &ranges[1], whole);
+        }
+        lanes::keyed_many(&self.spec.loose_key, loose, &ranges[2], loosened);
+        for (i, (&features, &loose)) in features.iter().zip(loosened.iter()).enumerate() {
+            let row = whole.get(i).copied().unwrap_or(features);
+            out.push(RowDigests { row, features, loose });
+        }
     }
 }
 
-/// Runs `f` over `rows` in chunks across threads and returns the results in
-/// row order, so the output does not depend on the number of threads.
-pub fn par_rows<T: Send>(rows: &[usize], f: impl Fn(usize, &mut Scratch) -> T + Sync) -> Vec<T> {
+/// Rows per task of [`par_chunks`]: their encodings stay in the core's cache.
+const CHUNK_ROWS: usize = 1024;
+
+/// Runs `f` over `rows` in chunks across threads, each appending one result
+/// per row, and returns the results in row order, so the output does not
+/// depend on the number of threads.
+pub fn par_chunks<T: Send>(rows: &[usize], f: impl Fn(&[usize], &mut Scratch, &mut Vec<T>) + Sync) -> Vec<T> {
     use rayon::prelude::*;
     let chunks: Vec<Vec<T>> = rows
-        .par_chunks(4096)
-        .map(|chunk| {
-            let mut scratch = Scratch::default();
-            chunk.iter().map(|&row| f(row, &mut scratch)).collect()
+        .par_chunks(CHUNK_ROWS)
+        .map_init(Scratch::default, |scratch, chunk| {
+            let mut out = Vec::with_capacity(chunk.len());
+            f(chunk, scratch, &mut out);
+            debug_assert_eq!(out.len(), chunk.len());
+            out
         })
         .collect();
     let mut out = Vec::with_capacity(rows.len());
@@ -328,6 +353,11 @@ pub fn par_rows<T: Send>(rows: &[usize], f: impl Fn(usize, &mut Scratch) -> T + 
         out.extend(c);
     }
     out
+}
+
+/// Runs `f` on each of `rows` across threads, as [`par_chunks`] does.
+pub fn par_rows<T: Send>(rows: &[usize], f: impl Fn(usize) -> T + Sync) -> Vec<T> {
+    par_chunks(rows, |chunk, _, out| out.extend(chunk.iter().map(|&row| f(row))))
 }
 
 impl BoundSpec {
@@ -360,7 +390,7 @@ impl BoundSpec {
     /// Types that cannot be encoded.
     pub fn row_digests_of(&self, batch: &RecordBatch, rows: &[usize], out: &mut Vec<RowDigest>) -> Result<()> {
         let enc = self.encoder(batch)?;
-        out.extend(par_rows(rows, |row, scratch| enc.row(row, scratch)));
+        out.extend(par_chunks(rows, |chunk, scratch, out| enc.rows(chunk, scratch, out)));
         Ok(())
     }
 
@@ -370,7 +400,7 @@ impl BoundSpec {
     /// Types that cannot be encoded.
     pub fn all_digests(&self, batch: &RecordBatch, rows: &[usize], out: &mut Vec<RowDigests>) -> Result<()> {
         let enc = self.encoder(batch)?;
-        out.extend(par_rows(rows, |row, scratch| enc.all(row, scratch)));
+        out.extend(par_chunks(rows, |chunk, scratch, out| enc.all(chunk, scratch, out)));
         Ok(())
     }
 }
@@ -450,7 +480,7 @@ impl GroupSpec {
                 }
             }
         }
-        let computed = par_rows(&missing, |row, scratch| enc.digest(row, scratch));
+        let computed = par_chunks(&missing, |chunk, scratch, out| enc.digests(chunk, scratch, out));
         for (&row, d) in missing.iter().zip(computed) {
             out[start + row] = d;
             if memo.map.len() < GroupMemo::CAPACITY {
@@ -470,12 +500,18 @@ pub struct GroupEncoder<'a> {
 }
 
 impl GroupEncoder<'_> {
-    /// The group digest of `row`.
-    pub fn digest(&self, row: usize, scratch: &mut Scratch) -> RowDigest {
-        let buf = &mut scratch.exact;
+    /// The group digests of `rows`, appended to `out` in that order.
+    pub fn digests(&self, rows: &[usize], scratch: &mut Scratch, out: &mut Vec<RowDigest>) {
+        let Scratch { exact: buf, ranges, .. } = scratch;
+        let ranges = &mut ranges[1];
         buf.clear();
-        self.key(row, buf);
-        truncate(blake3::keyed_hash(self.key, buf))
+        ranges.clear();
+        for &row in rows {
+            let start = buf.len();
+            self.key(row, buf);
+            ranges.push(start..buf.len());
+        }
+        lanes::keyed_many(self.key, buf, ranges, out);
     }
 
     /// Appends the canonical encoding of `row`'s group columns.

@@ -20,6 +20,7 @@ pub mod cli;
 pub mod digest;
 pub mod error;
 pub mod io;
+pub mod lanes;
 pub mod manifest;
 pub mod seal;
 pub mod ledger;
