@@ -420,7 +420,6 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
         let mut batches = table.batches(Some(needed.as_slice()), false)?.read_ahead();
         let mut times = Vec::new();
         let mut group_digests = Vec::new();
-        let mut memo = digest::GroupMemo::default();
         while let Some(batch) = batches.next_batch()? {
             // Read every needed column the sealed way.
             let mut fields = Vec::new();
@@ -469,7 +468,7 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
             }
             if groups_ok {
                 group_digests.clear();
-                seal.group_spec.as_ref().expect("groups").digests(path, &conformed.data, &mut memo, &mut group_digests)?;
+                seal.group_spec.as_ref().expect("groups").digests(path, &conformed.data, &mut group_digests)?;
                 let sealed = seal.groups.as_ref().expect("groups seal");
                 let hits = digest::par_rows(&all, |i| {
                     let d = group_digests[i];

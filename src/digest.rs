@@ -443,52 +443,17 @@ impl GroupSpec {
 
 }
 
-/// Group digests already computed, by the group's encoded key: entities
-/// repeat row after row, and a map lookup costs far less than BLAKE3. The
-/// memo stops growing at [`GroupMemo::CAPACITY`] keys (groups of one row
-/// each gain nothing from it).
-#[derive(Default)]
-pub struct GroupMemo {
-    map: foldhash::HashMap<Box<[u8]>, RowDigest>,
-}
-
-impl GroupMemo {
-    /// Most keys held.
-    pub const CAPACITY: usize = 1 << 18;
-}
-
 impl GroupSpec {
-    /// The group digest of each row of a batch, appended to `out`: digests
-    /// of groups seen before come from `memo`, the others are computed in
-    /// parallel.
+    /// The group digest of each row of a batch, appended to `out`: hashed
+    /// side by side ([`lanes`]), which costs less than looking a group's
+    /// key up among those seen before.
     ///
     /// # Errors
     /// Missing columns and types that cannot be encoded.
-    pub fn digests(&self, path: &Path, batch: &RecordBatch, memo: &mut GroupMemo, out: &mut Vec<RowDigest>) -> Result<()> {
+    pub fn digests(&self, path: &Path, batch: &RecordBatch, out: &mut Vec<RowDigest>) -> Result<()> {
         let enc = self.encoder(path, batch)?;
-        let start = out.len();
-        let mut key = Vec::with_capacity(64);
-        let mut missing = Vec::new();
-        for row in 0..batch.num_rows() {
-            key.clear();
-            enc.key(row, &mut key);
-            match memo.map.get(key.as_slice()) {
-                Some(d) => out.push(*d),
-                None => {
-                    missing.push(row);
-                    out.push([0; 16]);
-                }
-            }
-        }
-        let computed = par_chunks(&missing, |chunk, scratch, out| enc.digests(chunk, scratch, out));
-        for (&row, d) in missing.iter().zip(computed) {
-            out[start + row] = d;
-            if memo.map.len() < GroupMemo::CAPACITY {
-                key.clear();
-                enc.key(row, &mut key);
-                memo.map.insert(key.as_slice().into(), d);
-            }
-        }
+        let rows: Vec<usize> = (0..batch.num_rows()).collect();
+        out.extend(par_chunks(&rows, |chunk, scratch, out| enc.digests(chunk, scratch, out)));
         Ok(())
     }
 }

@@ -259,7 +259,6 @@ fn digest_partition(
     let mut buf = Vec::new();
     let mut group_first: crate::digest::DigestMap<u64> = Default::default();
     let mut group_digests = Vec::new();
-    let mut memo = crate::digest::GroupMemo::default();
     while let Some(batch) = batches.next_batch()? {
         let bound = spec.bind(path, &batch.data.schema())?;
         if !is_test {
@@ -274,7 +273,7 @@ fn digest_partition(
             }
             if let Some(g) = group {
                 group_digests.clear();
-                g.digests(path, &batch.data, &mut memo, &mut group_digests)?;
+                g.digests(path, &batch.data, &mut group_digests)?;
                 for (i, d) in group_digests.iter().enumerate() {
                     group_first.entry(*d).or_insert(batch.first_row + i as u64);
                 }

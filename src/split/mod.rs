@@ -274,7 +274,6 @@ fn first_pass(
     let mut strata_builder = (!stratify.is_empty()).then(|| StrataBuilder::new(stratify, cfg.bins));
     let group_spec = (!group.is_empty()).then(|| GroupSpec::new(group, cfg.digest_key.as_ref()));
     let mut groups = group_spec.as_ref().map(|_| Groups::new());
-    let mut memo = digest::GroupMemo::default();
     let mut group_seen = vec![false; group.len()];
     let mut times: Option<(Vec<i64>, Option<TimeKind>)> = cfg.order_by.as_ref().map(|_| (Vec::new(), None));
     let mut stable_keys = stable_rows.then(Vec::new);
@@ -312,7 +311,7 @@ fn first_pass(
         let groups_part = || -> Result<()> {
             if let (Some(spec), Some(groups)) = (&group_spec, groups.as_mut()) {
                 digests.clear();
-                spec.digests(&cfg.input, &batch.data, &mut memo, &mut digests)?;
+                spec.digests(&cfg.input, &batch.data, &mut digests)?;
                 groups.push(&digests);
                 for (seen, name) in group_seen.iter_mut().zip(group) {
                     let col = batch.data.column_by_name(name).expect("projected");
