@@ -262,6 +262,17 @@ pub struct Scratch {
     ranges: [Vec<Range<usize>>; 3],
     /// Digests of a chunk of rows before they are put together.
     digests: [Vec<RowDigest>; 3],
+    /// Encodings of values seen before, one cache per column position.
+    caches: Vec<ValueCache>,
+}
+
+impl Scratch {
+    fn caches(&mut self, columns: usize) -> &mut [ValueCache] {
+        if self.caches.len() < columns {
+            self.caches.resize_with(columns, ValueCache::default);
+        }
+        &mut self.caches[..columns]
+    }
 }
 
 /// The key columns of one batch, ready to digest any of its rows; shared
@@ -275,14 +286,15 @@ impl BatchEncoder<'_> {
     /// The row digests of `rows`, appended to `out` in that order. The rows
     /// are encoded end to end and hashed side by side ([`lanes`]).
     pub fn rows(&self, rows: &[usize], scratch: &mut Scratch, out: &mut Vec<RowDigest>) {
-        let Scratch { exact: buf, ranges, .. } = scratch;
+        scratch.caches(self.encoders.len());
+        let Scratch { exact: buf, ranges, caches, .. } = scratch;
         let ranges = &mut ranges[1];
         buf.clear();
         ranges.clear();
         for &row in rows {
             let start = buf.len();
-            for e in &self.encoders {
-                e.write(row, buf, false);
+            for (e, cache) in self.encoders.iter().zip(caches.iter_mut()) {
+                e.write_cached(row, buf, None, cache);
             }
             ranges.push(start..buf.len());
         }
@@ -295,22 +307,22 @@ impl BatchEncoder<'_> {
     /// bytes.
     pub fn all(&self, rows: &[usize], scratch: &mut Scratch, out: &mut Vec<RowDigests>) {
         let n_features = self.spec.features.len();
-        let Scratch { exact: buf, loose, ranges, digests } = scratch;
+        scratch.caches(self.encoders.len());
+        let Scratch { exact: buf, loose, ranges, digests, caches } = scratch;
         buf.clear();
         loose.clear();
         for r in ranges.iter_mut() {
             r.clear();
         }
+        let (feature_caches, label_caches) = caches.split_at_mut(n_features);
         for &row in rows {
             let (start, loose_start) = (buf.len(), loose.len());
-            for e in &self.encoders[..n_features] {
-                let at = buf.len();
-                e.write(row, buf, false);
-                e.loosen(row, &buf[at..], loose);
+            for (e, cache) in self.encoders[..n_features].iter().zip(feature_caches.iter_mut()) {
+                e.write_cached(row, buf, Some(&mut *loose), cache);
             }
             ranges[0].push(start..buf.len());
-            for e in &self.encoders[n_features..] {
-                e.write(row, buf, false);
+            for (e, cache) in self.encoders[n_features..].iter().zip(label_caches.iter_mut()) {
+                e.write_cached(row, buf, None, cache);
             }
             ranges[1].push(start..buf.len());
             ranges[2].push(loose_start..loose.len());
@@ -341,9 +353,15 @@ pub fn par_chunks<T: Send>(rows: &[usize], f: impl Fn(&[usize], &mut Scratch, &m
     use rayon::prelude::*;
     let chunks: Vec<Vec<T>> = rows
         .par_chunks(CHUNK_ROWS)
-        .map_init(Scratch::default, |scratch, chunk| {
+        .map(|chunk| {
             let mut out = Vec::with_capacity(chunk.len());
-            f(chunk, scratch, &mut out);
+            // Each thread keeps its scratch (and its value caches) from batch
+            // to batch; `f` starts no parallel work, so the scratch is free
+            // here, and a fresh one would only cost time.
+            SCRATCH.with(|cell| match cell.try_borrow_mut() {
+                Ok(mut scratch) => f(chunk, &mut scratch, &mut out),
+                Err(_) => f(chunk, &mut Scratch::default(), &mut out),
+            });
             debug_assert_eq!(out.len(), chunk.len());
             out
         })
@@ -467,23 +485,19 @@ pub struct GroupEncoder<'a> {
 impl GroupEncoder<'_> {
     /// The group digests of `rows`, appended to `out` in that order.
     pub fn digests(&self, rows: &[usize], scratch: &mut Scratch, out: &mut Vec<RowDigest>) {
-        let Scratch { exact: buf, ranges, .. } = scratch;
+        scratch.caches(self.encoders.len());
+        let Scratch { exact: buf, ranges, caches, .. } = scratch;
         let ranges = &mut ranges[1];
         buf.clear();
         ranges.clear();
         for &row in rows {
             let start = buf.len();
-            self.key(row, buf);
+            for (e, cache) in self.encoders.iter().zip(caches.iter_mut()) {
+                e.write_cached(row, buf, None, cache);
+            }
             ranges.push(start..buf.len());
         }
         lanes::keyed_many(self.key, buf, ranges, out);
-    }
-
-    /// Appends the canonical encoding of `row`'s group columns.
-    fn key(&self, row: usize, out: &mut Vec<u8>) {
-        for e in &self.encoders {
-            e.write(row, out, false);
-        }
     }
 }
 
@@ -531,6 +545,8 @@ impl std::hash::Hasher for DigestBits {
 pub type DigestMap<V> = std::collections::HashMap<RowDigest, V, std::hash::BuildHasherDefault<DigestBits>>;
 
 thread_local! {
+    /// Each thread's buffers for [`par_chunks`].
+    static SCRATCH: std::cell::RefCell<Scratch> = std::cell::RefCell::new(Scratch::default());
     /// A reused buffer for normalised text.
     static LOOSE_TEXT: std::cell::Cell<String> = const { std::cell::Cell::new(String::new()) };
 }
@@ -543,6 +559,53 @@ const TAG_BINARY: u8 = 4;
 const TAG_DATE: u8 = 5;
 const TAG_TIMESTAMP: u8 = 6;
 const TAG_LOCAL_TIMESTAMP: u8 = 7;
+
+/// Encodings of values seen before, by the value's bits: measurements,
+/// counts and dates repeat, and copying an encoding costs a fraction of
+/// writing one. A value's encoding depends only on its type and its bits, so
+/// an entry is right whatever column or batch it came from. Direct-mapped: a
+/// new value takes its slot's place.
+#[derive(Clone)]
+struct ValueCache {
+    slots: Box<[Slot]>,
+}
+
+#[derive(Clone, Copy, Default)]
+struct Slot {
+    /// [`Encoder::cache_key`]'s type tag; 0 marks an empty slot.
+    kind: u8,
+    exact_len: u8,
+    /// 0 until the loose encoding is first needed.
+    loose_len: u8,
+    bits: u64,
+    exact: [u8; SLOT_BYTES],
+    loose: [u8; SLOT_BYTES],
+}
+
+/// Longest encoding a slot holds (tag, length and 27 bytes of text).
+const SLOT_BYTES: usize = 32;
+const SLOTS_LOG2: u32 = 10;
+
+impl Default for ValueCache {
+    fn default() -> Self {
+        ValueCache { slots: vec![Slot::default(); 1 << SLOTS_LOG2].into_boxed_slice() }
+    }
+}
+
+/// Appends `encoding`, copied as a whole slot (a fixed-size copy is a few
+/// instructions; one of varying length is a call).
+#[inline(always)]
+fn put(out: &mut Vec<u8>, encoding: &[u8; SLOT_BYTES], len: u8) {
+    let end = out.len() + len as usize;
+    out.extend_from_slice(encoding);
+    out.truncate(end);
+}
+
+fn fill(encoding: &[u8]) -> Option<([u8; SLOT_BYTES], u8)> {
+    let mut slot = [0u8; SLOT_BYTES];
+    slot.get_mut(..encoding.len())?.copy_from_slice(encoding);
+    Some((slot, encoding.len() as u8))
+}
 
 /// One column of one batch, ready to encode value by value: the array is
 /// held by its concrete type, so a value costs no dynamic dispatch.
@@ -630,6 +693,67 @@ impl Encoder {
 
     fn is_null(&self, row: usize) -> bool {
         matches!(self.kind, Kind::Null) || self.nulls.as_ref().is_some_and(|n| n.is_null(row))
+    }
+
+    /// The type tag and bits under which value `row`'s encodings are
+    /// cached, for the types whose values repeat and are costly to write.
+    #[inline]
+    fn cache_key(&self, row: usize) -> Option<(u8, u64)> {
+        if self.nulls.as_ref().is_some_and(|n| n.is_null(row)) {
+            return None;
+        }
+        match &self.kind {
+            Kind::Float64(a) => Some((1, a[row].to_bits())),
+            Kind::Float32(a) => Some((2, a[row].to_bits() as u64)),
+            Kind::Int64(a) => Some((3, a[row] as u64)),
+            Kind::UInt64(a) => Some((4, a[row])),
+            Kind::Date(a) => Some((5, a[row] as u32 as u64)),
+            _ => None,
+        }
+    }
+
+    /// Appends value `row`'s exact encoding to `exact` and, when asked, its
+    /// loose encoding to `loose`, from `cache` where it can.
+    #[inline]
+    fn write_cached(&self, row: usize, exact: &mut Vec<u8>, loose: Option<&mut Vec<u8>>, cache: &mut ValueCache) {
+        let Some((kind, bits)) = self.cache_key(row) else {
+            let at = exact.len();
+            self.write(row, exact, false);
+            if let Some(loose) = loose {
+                self.loosen(row, &exact[at..], loose);
+            }
+            return;
+        };
+        let index = (bits.wrapping_add(kind as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15) >> (64 - SLOTS_LOG2)) as usize;
+        let slot = &mut cache.slots[index];
+        if slot.kind == kind && slot.bits == bits {
+            put(exact, &slot.exact, slot.exact_len);
+        } else {
+            let at = exact.len();
+            self.write(row, exact, false);
+            match fill(&exact[at..]) {
+                Some((bytes, len)) => {
+                    *slot = Slot { kind, exact_len: len, loose_len: 0, bits, exact: bytes, loose: [0; SLOT_BYTES] };
+                }
+                None => {
+                    if let Some(loose) = loose {
+                        self.loosen(row, &exact[at..], loose);
+                    }
+                    return;
+                }
+            }
+        }
+        let Some(loose) = loose else { return };
+        if slot.loose_len == 0 {
+            let at = loose.len();
+            self.loosen(row, &slot.exact[..slot.exact_len as usize], loose);
+            if let Some((bytes, len)) = fill(&loose[at..]) {
+                slot.loose = bytes;
+                slot.loose_len = len;
+            }
+        } else {
+            put(loose, &slot.loose, slot.loose_len);
+        }
     }
 
     /// Appends the loose encoding of value `row`, given its exact encoding:
@@ -865,6 +989,56 @@ mod tests {
         assert_eq!(normalise_text("Stra\u{DF}e"), "strasse");
         assert_eq!(normalise_text("  Low   Flow\tnear weir "), "low flow near weir");
         assert_eq!(normalise_text("e\u{301}"), "\u{E9}");
+    }
+
+    /// The value caches change no digest: values that repeat (and whose bits
+    /// collide across types) and nulls,
+    /// digested through the caches, against each row encoded on its own and
+    /// hashed by the `blake3` crate.
+    #[test]
+    fn cached_encodings_digest_as_uncached_ones() {
+        use arrow_array::{Date32Array, Float32Array, Float64Array, Int64Array};
+        use std::sync::Arc;
+        let floats = [0.5, -0.0, 1.0e-300, 1.2345678901234567e-300, f64::NAN, 7.25, f64::from_bits(3)];
+        let n = 5000;
+        let f64s: Float64Array = (0..n).map(|i| (i % 11 != 0).then(|| floats[i % floats.len()])).collect();
+        let f32s: Float32Array = (0..n).map(|i| Some((i % 5) as f32 * 0.1)).collect();
+        let i64s: Int64Array = (0..n).map(|i| Some([3i64, 1, -1, i64::MIN][i % 4])).collect();
+        let dates: Date32Array = (0..n).map(|i| (i % 7 != 3).then_some((i % 3) as i32)).collect();
+        let labels: StringArray = (0..n).map(|i| Some(["none", "High"][i % 2])).collect();
+        let columns: Vec<ArrayRef> =
+            vec![Arc::new(f64s), Arc::new(f32s), Arc::new(i64s), Arc::new(dates), Arc::new(labels)];
+        let names: Vec<String> = ["a", "b", "c", "d", "label"].map(String::from).to_vec();
+        let spec = DigestSpec::new(&names, &["label".to_string()], None);
+        let digest = |key: &[u8; 32], bytes: &[u8]| -> RowDigest {
+            blake3::keyed_hash(key, bytes).as_bytes()[..16].try_into().unwrap()
+        };
+        // The second time the floats and integers swap names, so a thread's
+        // cache for the first column sees integers after floats.
+        for order in [["a", "b", "c", "d", "label"], ["c", "b", "a", "d", "label"]] {
+            let batch = RecordBatch::try_from_iter(order.into_iter().zip(columns.clone())).unwrap();
+            let bound = spec.bind(Path::new("t"), &batch.schema()).unwrap();
+            let rows: Vec<usize> = (0..n).collect();
+            let mut all = Vec::new();
+            bound.all_digests(&batch, &rows, &mut all).unwrap();
+            let mut plain = Vec::new();
+            bound.row_digests(&batch, &mut plain).unwrap();
+            let enc = bound.encoder(&batch).unwrap();
+            for row in 0..n {
+                let (mut exact, mut loose) = (Vec::new(), Vec::new());
+                for e in &enc.encoders[..4] {
+                    let at = exact.len();
+                    e.write(row, &mut exact, false);
+                    e.loosen(row, &exact[at..], &mut loose);
+                }
+                let features = digest(&spec.row_key, &exact);
+                enc.encoders[4].write(row, &mut exact, false);
+                let expected =
+                    RowDigests { row: digest(&spec.row_key, &exact), features, loose: digest(&spec.loose_key, &loose) };
+                assert_eq!(all[row], expected, "row {row}");
+                assert_eq!(plain[row], expected.row, "row {row}");
+            }
+        }
     }
 
     #[test]
