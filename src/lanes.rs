@@ -66,7 +66,7 @@ pub fn keyed_many(key: &[u8; 32], bytes: &[u8], ranges: &[Range<usize>], out: &m
     let out = &mut out[start..];
     #[cfg(target_arch = "x86_64")]
     {
-        if std::arch::is_x86_feature_detected!("avx512f") {
+        if std::arch::is_x86_feature_detected!("avx512f") && std::arch::is_x86_feature_detected!("avx512bw") {
             // SAFETY: the CPU has the features the function is compiled for.
             unsafe { avx512::keyed_many(key, bytes, ranges, out) };
             return;
@@ -249,10 +249,10 @@ mod avx512 {
     use std::arch::x86_64::*;
     use std::ops::Range;
 
-    use super::{block_flags, key_words, single_chunk, BLOCK_LEN, IV, LANES, SCHEDULE};
+    use super::{key_words, single_chunk, BLOCK_LEN, CHUNK_END, CHUNK_START, IV, KEYED_HASH, LANES, ROOT, SCHEDULE};
     use crate::digest::RowDigest;
 
-    #[target_feature(enable = "avx512f")]
+    #[target_feature(enable = "avx512f,avx512bw")]
     pub(super) fn keyed_many(key: &[u8; 32], bytes: &[u8], ranges: &[Range<usize>], out: &mut [RowDigest]) {
         let key_words = key_words(key);
         for group in single_chunk(key, bytes, ranges, out).chunks(LANES) {
@@ -261,46 +261,48 @@ mod avx512 {
     }
 
     #[inline]
-    #[target_feature(enable = "avx512f")]
+    #[target_feature(enable = "avx512f,avx512bw")]
     fn hash_group(key: &[u32; 8], bytes: &[u8], ranges: &[Range<usize>], group: &[usize], out: &mut [RowDigest]) {
         let mut cv: [__m512i; 8] = std::array::from_fn(|i| _mm512_set1_epi32(key[i] as i32));
-        let mut blocks = [0usize; LANES];
+        let mut starts = [0usize; LANES];
+        let mut lens = [0u32; LANES];
+        let mut blocks = [0u32; LANES];
         for (lane, &i) in group.iter().enumerate() {
-            blocks[lane] = ranges[i].len().div_ceil(BLOCK_LEN).max(1);
+            let r = &ranges[i];
+            starts[lane] = r.start;
+            lens[lane] = r.len() as u32;
+            blocks[lane] = r.len().div_ceil(BLOCK_LEN).max(1) as u32;
         }
         let steps = blocks.iter().copied().max().unwrap_or(0);
-        let zero = _mm512_setzero_si512();
-        for step in 0..steps {
-            let mut rows = [zero; 16];
-            let mut block_len = [0u32; LANES];
-            let mut flags = [0u32; LANES];
-            let mut active: u16 = 0;
+        // SAFETY: both arrays hold 16 words (unaligned loads).
+        let (lens_v, blocks_v) =
+            unsafe { (_mm512_loadu_si512(lens.as_ptr().cast()), _mm512_loadu_si512(blocks.as_ptr().cast())) };
+        let mut rows = [_mm512_setzero_si512(); 16];
+        for step in 0..steps as usize {
+            let step_v = _mm512_set1_epi32(step as i32);
+            // Lanes whose message has this block; the others keep their
+            // chaining value (and their stale block is never used).
+            let active = _mm512_cmpgt_epu32_mask(blocks_v, step_v);
+            let block_len =
+                _mm512_min_epu32(_mm512_sub_epi32(lens_v, _mm512_set1_epi32((step * BLOCK_LEN) as i32)), _mm512_set1_epi32(BLOCK_LEN as i32));
+            let base = _mm512_set1_epi32((KEYED_HASH | if step == 0 { CHUNK_START } else { 0 }) as i32);
+            let last = _mm512_cmpeq_epu32_mask(blocks_v, _mm512_set1_epi32(step as i32 + 1));
+            let flags = _mm512_mask_or_epi32(base, last, base, _mm512_set1_epi32((CHUNK_END | ROOT) as i32));
             for lane in 0..group.len() {
-                if step >= blocks[lane] {
+                if step as u32 >= blocks[lane] {
                     continue;
                 }
-                active |= 1 << lane;
-                let r = &ranges[group[lane]];
-                let from = r.start + step * BLOCK_LEN;
-                let len = (r.end - from).min(BLOCK_LEN);
-                rows[lane] = if len == BLOCK_LEN {
-                    let block: &[u8; BLOCK_LEN] = bytes[from..from + BLOCK_LEN].try_into().expect("a whole block");
-                    // SAFETY: `block` holds the 64 bytes read (unaligned).
-                    unsafe { _mm512_loadu_si512(block.as_ptr().cast()) }
-                } else {
-                    let mut block = [0u8; BLOCK_LEN];
-                    block[..len].copy_from_slice(&bytes[from..from + len]);
-                    // SAFETY: as above.
-                    unsafe { _mm512_loadu_si512(block.as_ptr().cast()) }
-                };
-                block_len[lane] = len as u32;
-                flags[lane] = block_flags(step, blocks[lane]);
+                let from = starts[lane] + step * BLOCK_LEN;
+                let len = (lens[lane] as usize - step * BLOCK_LEN).min(BLOCK_LEN);
+                let block = &bytes[from..from + len];
+                // A masked load reads the block's bytes only and zeroes the
+                // rest of the vector (a partial block is zero-padded).
+                let mask: u64 = if len == BLOCK_LEN { u64::MAX } else { (1u64 << len) - 1 };
+                // SAFETY: the mask covers `block`'s `len` bytes and no more;
+                // masked-off bytes are not read.
+                rows[lane] = unsafe { _mm512_maskz_loadu_epi8(mask, block.as_ptr().cast()) };
             }
             let m = transpose(rows);
-            // SAFETY: both arrays hold 16 words (unaligned loads).
-            let (block_len, flags) = unsafe {
-                (_mm512_loadu_si512(block_len.as_ptr().cast()), _mm512_loadu_si512(flags.as_ptr().cast()))
-            };
             let next = compress(&cv, &m, block_len, flags);
             for (word, new) in cv.iter_mut().zip(next) {
                 *word = _mm512_mask_mov_epi32(*word, active, new);
@@ -321,7 +323,7 @@ mod avx512 {
     /// Rows (one message block per lane) to columns (one message word per
     /// vector): the 2 x 2 block transpose applied at block sizes 8, 4, 2, 1.
     #[inline]
-    #[target_feature(enable = "avx512f")]
+    #[target_feature(enable = "avx512f,avx512bw")]
     fn transpose(mut r: [__m512i; 16]) -> [__m512i; 16] {
         for d in [8usize, 4, 2, 1] {
             let mut lo = [0i32; 16];
@@ -345,7 +347,7 @@ mod avx512 {
     }
 
     #[inline]
-    #[target_feature(enable = "avx512f")]
+    #[target_feature(enable = "avx512f,avx512bw")]
     fn compress(cv: &[__m512i; 8], m: &[__m512i; 16], block_len: __m512i, flags: __m512i) -> [__m512i; 8] {
         let zero = _mm512_setzero_si512();
         let mut v = [
@@ -354,21 +356,33 @@ mod avx512 {
             _mm512_set1_epi32(IV[2] as i32), _mm512_set1_epi32(IV[3] as i32),
             zero, zero, block_len, flags,
         ];
-        for s in &SCHEDULE {
-            g(&mut v, 0, 4, 8, 12, m[s[0]], m[s[1]]);
-            g(&mut v, 1, 5, 9, 13, m[s[2]], m[s[3]]);
-            g(&mut v, 2, 6, 10, 14, m[s[4]], m[s[5]]);
-            g(&mut v, 3, 7, 11, 15, m[s[6]], m[s[7]]);
-            g(&mut v, 0, 5, 10, 15, m[s[8]], m[s[9]]);
-            g(&mut v, 1, 6, 11, 12, m[s[10]], m[s[11]]);
-            g(&mut v, 2, 7, 8, 13, m[s[12]], m[s[13]]);
-            g(&mut v, 3, 4, 9, 14, m[s[14]], m[s[15]]);
+        // Seven rounds written out, so that every message index is a
+        // constant and the message stays in registers.
+        macro_rules! round {
+            ($r:literal) => {
+                let s = &SCHEDULE[$r];
+                g(&mut v, 0, 4, 8, 12, m[s[0]], m[s[1]]);
+                g(&mut v, 1, 5, 9, 13, m[s[2]], m[s[3]]);
+                g(&mut v, 2, 6, 10, 14, m[s[4]], m[s[5]]);
+                g(&mut v, 3, 7, 11, 15, m[s[6]], m[s[7]]);
+                g(&mut v, 0, 5, 10, 15, m[s[8]], m[s[9]]);
+                g(&mut v, 1, 6, 11, 12, m[s[10]], m[s[11]]);
+                g(&mut v, 2, 7, 8, 13, m[s[12]], m[s[13]]);
+                g(&mut v, 3, 4, 9, 14, m[s[14]], m[s[15]]);
+            };
         }
+        round!(0);
+        round!(1);
+        round!(2);
+        round!(3);
+        round!(4);
+        round!(5);
+        round!(6);
         std::array::from_fn(|i| _mm512_xor_si512(v[i], v[i + 8]))
     }
 
     #[inline]
-    #[target_feature(enable = "avx512f")]
+    #[target_feature(enable = "avx512f,avx512bw")]
     fn g(v: &mut [__m512i; 16], a: usize, b: usize, c: usize, d: usize, x: __m512i, y: __m512i) {
         v[a] = _mm512_add_epi32(_mm512_add_epi32(v[a], v[b]), x);
         v[d] = _mm512_ror_epi32::<16>(_mm512_xor_si512(v[d], v[a]));
