@@ -499,7 +499,8 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
                 };
                 let enc = bound.encoder(&conformed.data)?;
                 let rows_seal = seal.rows.as_ref().filter(|_| rows_ok);
-                // Lookups apart from hashing, pipelined chunk by chunk.
+                // Lookups apart from hashing, pipelined chunk by chunk (the
+                // chunks of `all`, which is 0..n, are runs of row indices).
                 let digests = digest::par_chunks(&all, |rows, scratch, out| enc.all(rows, scratch, out));
                 let hits = digest::par_chunks(&all, |rows, _, out| {
                     let ds = &digests[rows[0]..rows[0] + rows.len()];
