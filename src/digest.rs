@@ -266,10 +266,15 @@ pub struct Scratch {
     caches: Vec<ValueCache>,
 }
 
+/// Column positions with a value cache (80 KiB each, per thread); columns
+/// further on are encoded without one, so wide tables stay lean.
+const CACHED_COLUMNS: usize = 64;
+
 impl Scratch {
     fn caches(&mut self, columns: usize) -> &mut [ValueCache] {
-        if self.caches.len() < columns {
-            self.caches.resize_with(columns, ValueCache::default);
+        while self.caches.len() < columns {
+            let cache = if self.caches.len() < CACHED_COLUMNS { ValueCache::default() } else { ValueCache::none() };
+            self.caches.push(cache);
         }
         &mut self.caches[..columns]
     }
@@ -592,6 +597,13 @@ impl Default for ValueCache {
     }
 }
 
+impl ValueCache {
+    /// A cache that holds nothing (every value is encoded afresh).
+    fn none() -> Self {
+        ValueCache { slots: Box::new([]) }
+    }
+}
+
 /// Appends `encoding`, copied as a whole slot (a fixed-size copy is a few
 /// instructions; one of varying length is a call).
 #[inline(always)]
@@ -716,7 +728,7 @@ impl Encoder {
     /// loose encoding to `loose`, from `cache` where it can.
     #[inline]
     fn write_cached(&self, row: usize, exact: &mut Vec<u8>, loose: Option<&mut Vec<u8>>, cache: &mut ValueCache) {
-        let Some((kind, bits)) = self.cache_key(row) else {
+        let Some((kind, bits)) = self.cache_key(row).filter(|_| !cache.slots.is_empty()) else {
             let at = exact.len();
             self.write(row, exact, false);
             if let Some(loose) = loose {
@@ -1051,6 +1063,39 @@ mod tests {
                 assert_eq!(all[row], expected, "row {row}");
                 assert_eq!(plain[row], expected.row, "row {row}");
             }
+        }
+    }
+
+    /// Columns past the cached ones are encoded without a cache, to the
+    /// same digests.
+    #[test]
+    fn wide_tables_digest_past_the_cached_columns() {
+        use arrow_array::Float64Array;
+        use std::sync::Arc;
+        let n = 300;
+        let width = CACHED_COLUMNS + 6;
+        let names: Vec<String> = (0..width).map(|c| format!("c{c:03}")).collect();
+        let columns: Vec<(String, ArrayRef)> = names
+            .iter()
+            .enumerate()
+            .map(|(c, name)| {
+                let a: Float64Array = (0..n).map(|i| Some(((i * (c + 1)) % 17) as f64 * 0.25)).collect();
+                (name.clone(), Arc::new(a) as ArrayRef)
+            })
+            .collect();
+        let batch = RecordBatch::try_from_iter(columns).unwrap();
+        let spec = DigestSpec::new(&names, &[], None);
+        let bound = spec.bind(Path::new("t"), &batch.schema()).unwrap();
+        let mut digests = Vec::new();
+        bound.row_digests(&batch, &mut digests).unwrap();
+        let enc = bound.encoder(&batch).unwrap();
+        for (row, d) in digests.iter().enumerate() {
+            let mut exact = Vec::new();
+            for e in &enc.encoders {
+                e.write(row, &mut exact, false);
+            }
+            let expected: RowDigest = blake3::keyed_hash(&spec.row_key, &exact).as_bytes()[..16].try_into().unwrap();
+            assert_eq!(*d, expected, "row {row}");
         }
     }
 
