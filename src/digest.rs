@@ -291,19 +291,7 @@ impl BatchEncoder<'_> {
     /// The row digests of `rows`, appended to `out` in that order. The rows
     /// are encoded end to end and hashed side by side ([`lanes`]).
     pub fn rows(&self, rows: &[usize], scratch: &mut Scratch, out: &mut Vec<RowDigest>) {
-        scratch.caches(self.encoders.len());
-        let Scratch { exact: buf, ranges, caches, .. } = scratch;
-        let ranges = &mut ranges[1];
-        buf.clear();
-        ranges.clear();
-        for &row in rows {
-            let start = buf.len();
-            for (e, cache) in self.encoders.iter().zip(caches.iter_mut()) {
-                e.write_cached(row, buf, None, cache);
-            }
-            ranges.push(start..buf.len());
-        }
-        lanes::keyed_many(&self.spec.row_key, buf, ranges, out);
+        digest_rows(&self.encoders, &self.spec.row_key, rows, scratch, out);
     }
 
     /// All three digests of `rows`, appended to `out` in that order, from
@@ -348,6 +336,25 @@ impl BatchEncoder<'_> {
     }
 }
 
+/// The digests under `key` of `rows` encoded by `encoders`, appended to
+/// `out` in that order: the rows are encoded end to end and hashed side by
+/// side ([`lanes`]).
+fn digest_rows(encoders: &[Encoder], key: &[u8; 32], rows: &[usize], scratch: &mut Scratch, out: &mut Vec<RowDigest>) {
+    scratch.caches(encoders.len());
+    let Scratch { exact: buf, ranges, caches, .. } = scratch;
+    let ranges = &mut ranges[1];
+    buf.clear();
+    ranges.clear();
+    for &row in rows {
+        let start = buf.len();
+        for (e, cache) in encoders.iter().zip(caches.iter_mut()) {
+            e.write_cached(row, buf, None, cache);
+        }
+        ranges.push(start..buf.len());
+    }
+    lanes::keyed_many(key, buf, ranges, out);
+}
+
 /// Rows per task of [`par_chunks`]: their encodings stay in the core's cache.
 const CHUNK_ROWS: usize = 1024;
 
@@ -376,11 +383,6 @@ pub fn par_chunks<T: Send>(rows: &[usize], f: impl Fn(&[usize], &mut Scratch, &m
         out.extend(c);
     }
     out
-}
-
-/// Runs `f` on each of `rows` across threads, as [`par_chunks`] does.
-pub fn par_rows<T: Send>(rows: &[usize], f: impl Fn(usize) -> T + Sync) -> Vec<T> {
-    par_chunks(rows, |chunk, _, out| out.extend(chunk.iter().map(|&row| f(row))))
 }
 
 impl BoundSpec {
@@ -490,19 +492,7 @@ pub struct GroupEncoder<'a> {
 impl GroupEncoder<'_> {
     /// The group digests of `rows`, appended to `out` in that order.
     pub fn digests(&self, rows: &[usize], scratch: &mut Scratch, out: &mut Vec<RowDigest>) {
-        scratch.caches(self.encoders.len());
-        let Scratch { exact: buf, ranges, caches, .. } = scratch;
-        let ranges = &mut ranges[1];
-        buf.clear();
-        ranges.clear();
-        for &row in rows {
-            let start = buf.len();
-            for (e, cache) in self.encoders.iter().zip(caches.iter_mut()) {
-                e.write_cached(row, buf, None, cache);
-            }
-            ranges.push(start..buf.len());
-        }
-        lanes::keyed_many(self.key, buf, ranges, out);
+        digest_rows(&self.encoders, self.key, rows, scratch, out);
     }
 }
 
@@ -1016,9 +1006,13 @@ mod tests {
         assert_eq!(normalise_text("e\u{301}"), "\u{E9}");
     }
 
+    /// The first 128 bits of the `blake3` crate's keyed hash: the reference.
+    fn crate_digest(key: &[u8; 32], bytes: &[u8]) -> RowDigest {
+        blake3::keyed_hash(key, bytes).as_bytes()[..16].try_into().unwrap()
+    }
+
     /// The value caches change no digest: values that repeat (and whose bits
-    /// collide across types) and nulls,
-    /// digested through the caches, against each row encoded on its own and
+    /// collide across types) and nulls, digested through the caches, against each row encoded on its own and
     /// hashed by the `blake3` crate.
     #[test]
     fn cached_encodings_digest_as_uncached_ones() {
@@ -1035,9 +1029,6 @@ mod tests {
             vec![Arc::new(f64s), Arc::new(f32s), Arc::new(i64s), Arc::new(dates), Arc::new(labels)];
         let names: Vec<String> = ["a", "b", "c", "d", "label"].map(String::from).to_vec();
         let spec = DigestSpec::new(&names, &["label".to_string()], None);
-        let digest = |key: &[u8; 32], bytes: &[u8]| -> RowDigest {
-            blake3::keyed_hash(key, bytes).as_bytes()[..16].try_into().unwrap()
-        };
         // The second time the floats and integers swap names, so a thread's
         // cache for the first column sees integers after floats.
         for order in [["a", "b", "c", "d", "label"], ["c", "b", "a", "d", "label"]] {
@@ -1056,10 +1047,10 @@ mod tests {
                     e.write(row, &mut exact, false);
                     e.loosen(row, &exact[at..], &mut loose);
                 }
-                let features = digest(&spec.row_key, &exact);
+                let features = crate_digest(&spec.row_key, &exact);
                 enc.encoders[4].write(row, &mut exact, false);
                 let expected =
-                    RowDigests { row: digest(&spec.row_key, &exact), features, loose: digest(&spec.loose_key, &loose) };
+                    RowDigests { row: crate_digest(&spec.row_key, &exact), features, loose: crate_digest(&spec.loose_key, &loose) };
                 assert_eq!(all[row], expected, "row {row}");
                 assert_eq!(plain[row], expected.row, "row {row}");
             }
@@ -1094,8 +1085,7 @@ mod tests {
             for e in &enc.encoders {
                 e.write(row, &mut exact, false);
             }
-            let expected: RowDigest = blake3::keyed_hash(&spec.row_key, &exact).as_bytes()[..16].try_into().unwrap();
-            assert_eq!(*d, expected, "row {row}");
+            assert_eq!(*d, crate_digest(&spec.row_key, &exact), "row {row}");
         }
     }
 
