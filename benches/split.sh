@@ -50,6 +50,7 @@ for n in "${sizes[@]}"; do
     timed "read floor: every partition once" "$n" 0 target/release/examples/read_floor "$out"
     read_floor=$LAST
     timed "verify (ratio to the read floor)" "$n" "$read_floor" "$bin" verify "$out"
+    timed "verify --deep (every partition)" "$n" "$read_floor" "$bin" verify "$out" --deep
     timed "check of the input vs the seal" "$n" "$floor" "$bin" check "$input" --against "$out"
   done
 done

@@ -13,9 +13,16 @@ pub const RECORD_BYTES: usize = 24;
 /// One sealed digest and the test row it came from.
 pub type SealRecord = (RowDigest, u64);
 
+/// Sorts records by digest, then row: the order of the file. Compared as a
+/// 128-bit big-endian number a digest sorts as its bytes do.
+pub fn sort(records: &mut [SealRecord]) {
+    use rayon::prelude::*;
+    records.par_sort_unstable_by_key(|(digest, row)| (u128::from_be_bytes(*digest), *row));
+}
+
 /// The file bytes of a set of records (sorted here).
 pub fn encode(records: &mut [SealRecord]) -> Vec<u8> {
-    records.sort_unstable();
+    sort(records);
     let mut out = Vec::with_capacity(records.len() * RECORD_BYTES);
     for (digest, row) in records.iter() {
         out.extend_from_slice(digest);
@@ -29,22 +36,36 @@ pub fn encode(records: &mut [SealRecord]) -> Vec<u8> {
 /// # Errors
 /// A length that is not a whole number of records, or records out of order.
 pub fn decode(bytes: &[u8]) -> Result<Vec<SealRecord>, String> {
+    check_order(bytes)?;
+    Ok(records(bytes).collect())
+}
+
+/// Checks that seal file bytes are whole records in order, and returns how
+/// many there are.
+///
+/// # Errors
+/// A length that is not a whole number of records, or records out of order.
+pub fn check_order(bytes: &[u8]) -> Result<usize, String> {
     if bytes.len() % RECORD_BYTES != 0 {
         return Err(format!("is {} bytes, not a whole number of {RECORD_BYTES}-byte records", bytes.len()));
     }
-    let mut out = Vec::with_capacity(bytes.len() / RECORD_BYTES);
-    for chunk in bytes.chunks_exact(RECORD_BYTES) {
-        let mut digest = [0u8; 16];
-        digest.copy_from_slice(&chunk[..16]);
-        let row = u64::from_le_bytes(chunk[16..].try_into().expect("8 bytes"));
-        if let Some(prev) = out.last() {
-            if *prev > (digest, row) {
-                return Err(format!("records are out of order at record {}", out.len() + 1));
-            }
+    let mut prev: Option<SealRecord> = None;
+    for (i, record) in records(bytes).enumerate() {
+        if prev.is_some_and(|p| p > record) {
+            return Err(format!("records are out of order at record {}", i + 1));
         }
-        out.push((digest, row));
+        prev = Some(record);
     }
-    Ok(out)
+    Ok(bytes.len() / RECORD_BYTES)
+}
+
+/// The records of seal file bytes, in file order (a trailing partial record
+/// is left out: [`check_order`] refuses it).
+pub fn records(bytes: &[u8]) -> impl Iterator<Item = SealRecord> + '_ {
+    bytes.chunks_exact(RECORD_BYTES).map(|chunk| {
+        let digest: RowDigest = chunk[..16].try_into().expect("16 bytes");
+        (digest, u64::from_le_bytes(chunk[16..].try_into().expect("8 bytes")))
+    })
 }
 
 #[cfg(test)]

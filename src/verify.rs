@@ -2,10 +2,14 @@
 //!
 //! Every problem is collected, not just the first: the manifest's own
 //! checksum, a pinned checksum, then for each partition and seal file its
-//! presence, size and BLAKE3, and by re-reading the partitions their row
-//! counts, content digests and the seal's digests recomputed from the test
-//! partition. A checksum mismatch does not stop the file checks, so the
-//! report names what changed.
+//! presence, size and BLAKE3, and by re-reading the test partition its row
+//! count, content digest and the seal's digests recomputed from its rows.
+//! A train or validation file is re-read when its bytes differ from the
+//! seal's (to say whether its rows changed too) or when asked for (`deep`):
+//! a file whose BLAKE3 matches holds the very bytes that were sealed, so
+//! re-digesting it can only find a manifest re-sealed around other counts,
+//! which the pinned checksum rules out. A checksum mismatch does not stop the
+//! file checks, so the report names what changed.
 
 use std::path::Path;
 
@@ -13,13 +17,14 @@ use std::collections::BTreeMap;
 
 use arrow_array::cast::AsArray;
 use arrow_array::Array;
+use rayon::prelude::*;
 
 use crate::digest::{content_digest, DigestKey, DigestSpec, GroupSpec, RowDigests};
 use crate::error::Result;
 use crate::io::{self, Table, TypeHints};
 use crate::manifest::{self, SealKind};
 use crate::seal;
-use crate::split::{seal_records, Partition};
+use crate::split::{kind_digest, Partition};
 
 /// One thing that differs from the seal.
 #[derive(Debug, Clone, PartialEq, Eq, serde::Serialize)]
@@ -41,6 +46,8 @@ pub struct VerifyReport {
     pub files_checked: usize,
     /// Rows re-read and re-digested.
     pub rows_checked: u64,
+    /// Partitions re-read and re-digested.
+    pub partitions_redigested: usize,
     /// Whether rows were re-digested (a keyed seal needs its key for that).
     pub redigested: bool,
 }
@@ -71,14 +78,25 @@ impl VerifyReport {
     }
 }
 
+/// How much a verify re-reads, beyond every file's size and BLAKE3.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct Depth {
+    /// The folder is the modelling team's copy: the labelled test partition
+    /// and the row digests are not expected.
+    pub shareable: bool,
+    /// Re-read and re-digest every partition, not only the test partition
+    /// and files whose bytes changed.
+    pub deep: bool,
+}
+
 /// Verifies the folder or manifest at `path`; `pin` is a manifest checksum
-/// the caller trusts. With `shareable`, the folder is the modelling team's
-/// copy: the labelled test partition and the row digests are not expected.
+/// the caller trusts.
 ///
 /// # Errors
 /// Only when the manifest cannot be read or parsed; everything else is a
 /// [`Problem`] in the report.
-pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, shareable: bool) -> Result<VerifyReport> {
+pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: Depth) -> Result<VerifyReport> {
+    let Depth { shareable, deep } = depth;
     let loaded = manifest::load(path)?;
     let m = &loaded.manifest;
     check_key(&loaded, key)?;
@@ -109,28 +127,42 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, shareable
     }
     let mut files_checked = 0;
     let mut rows_checked = 0;
+    let mut partitions_redigested = 0;
     let mut test_digests: Option<(Vec<(RowDigests, u64)>, Vec<crate::seal::SealRecord>)> = None;
     let group_spec = (!m.options.group.is_empty()).then(|| GroupSpec::new(&m.options.group, key));
-    for part in &m.partitions {
-        // The modelling team's copy holds no labelled test rows.
-        if shareable && part.name == Partition::Test {
-            continue;
-        }
-        let file = loaded.file(&part.file);
-        files_checked += 1;
+    // The modelling team's copy holds no labelled test rows.
+    let parts: Vec<&manifest::PartitionRecord> =
+        m.partitions.iter().filter(|p| !(shareable && p.name == Partition::Test)).collect();
+    let seal_files: Vec<&manifest::SealFile> = m.seal.files.iter().filter(|f| !shareable || f.shareable).collect();
+    let digest = |part: &manifest::PartitionRecord| {
         let is_test = part.name == Partition::Test;
         let fold_column = m.folds.as_ref().filter(|_| !is_test).map(|f| f.column.as_str());
-        // The file's hash and its rows' digests side by side.
-        let (hashed, content) = rayon::join(
-            || io::hash_file(&file),
-            || redigest.then(|| digest_partition(&file, part.format, &hints, &spec, group_spec.as_ref(), fold_column, is_test)),
-        );
-        let summary = match hashed {
-            Ok(s) => s,
-            Err(_) => {
-                problem(&part.file, format!("the {} partition file is missing or unreadable", part.name));
-                continue;
-            }
+        // The row count the seal gives, capped, sizes the buffers: a
+        // wrong one costs only regrowing them.
+        let rows_hint = part.rows.min(1 << 24) as usize;
+        let file = loaded.file(&part.file);
+        digest_partition(&file, part.format, &hints, &spec, group_spec.as_ref(), fold_column, is_test, rows_hint)
+    };
+    // Every file hashed, and the partitions re-read in any case digested,
+    // side by side.
+    let (hashed, (mut contents, seals)) = rayon::join(
+        || {
+            let files: Vec<&str> = parts.iter().map(|p| p.file.as_str()).chain(m.handoff.as_ref().map(|h| h.file.as_str())).collect();
+            files.par_iter().map(|f| io::hash_file(&loaded.file(f)).ok()).collect::<Vec<_>>()
+        },
+        || {
+            rayon::join(
+                || parts.iter().map(|p| (redigest && (deep || p.name == Partition::Test)).then(|| digest(p))).collect::<Vec<_>>(),
+                || seal_files.par_iter().map(|sf| read_seal_file(&loaded.file(&sf.file))).collect::<Vec<_>>(),
+            )
+        },
+    );
+    for ((part, summary), content) in parts.iter().zip(&hashed).zip(contents.iter_mut()) {
+        files_checked += 1;
+        let is_test = part.name == Partition::Test;
+        let Some(summary) = summary else {
+            problem(&part.file, format!("the {} partition file is missing or unreadable", part.name));
+            continue;
         };
         if summary.bytes != part.bytes {
             problem(&part.file, format!("size is {} bytes, the seal says {}", summary.bytes, part.bytes));
@@ -138,13 +170,16 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, shareable
         if summary.blake3 != part.blake3 {
             problem(&part.file, format!("BLAKE3 is {}, the seal says {}", summary.blake3, part.blake3));
         }
-        let Some(content) = content else {
+        // A file whose bytes changed is re-read to say whether its rows did.
+        let changed = summary.bytes != part.bytes || summary.blake3 != part.blake3;
+        let Some(content) = content.take().or_else(|| (redigest && changed).then(|| digest(part))) else {
             continue;
         };
+        partitions_redigested += 1;
         match content {
             Ok(Content { mut rows, all, groups, folds }) => {
                 rows_checked += rows.len() as u64;
-                if fold_column.is_some() && !part.folds.is_empty() && folds != part.folds {
+                if !is_test && m.folds.is_some() && !part.folds.is_empty() && folds != part.folds {
                     problem(&part.file, format!("its fold column counts {folds:?} rows per fold, the seal says {:?}", part.folds));
                 }
                 if rows.len() as u64 != part.rows {
@@ -165,9 +200,9 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, shareable
     }
     if let Some(h) = &m.handoff {
         files_checked += 1;
-        match io::hash_file(&loaded.file(&h.file)) {
-            Err(_) => problem(&h.file, "the label-free test file is missing or unreadable".into()),
-            Ok(summary) => {
+        match hashed.last().expect("the hand-off is hashed last") {
+            None => problem(&h.file, "the label-free test file is missing or unreadable".into()),
+            Some(summary) => {
                 if summary.bytes != h.bytes {
                     problem(&h.file, format!("size is {} bytes, the seal says {}", summary.bytes, h.bytes));
                 }
@@ -177,39 +212,42 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, shareable
             }
         }
     }
-    for sf in &m.seal.files {
-        if shareable && !sf.shareable {
-            continue;
-        }
+    // Each seal file set against the test rows, when they match their seal.
+    let compared: Vec<_> = seal_files
+        .par_iter()
+        .zip(seals)
+        .map(|(sf, read)| {
+            read.map(|(summary, bytes)| {
+                let checked = seal::check_order(&bytes);
+                let matches = match (&test_digests, &checked) {
+                    (Some((_, groups)), Ok(_)) if sf.kind == SealKind::Groups => seal::records(&bytes).eq(groups.iter().copied()),
+                    (Some((test, _)), Ok(_)) => seal_matches(&bytes, test, sf.kind),
+                    _ => true,
+                };
+                (summary, checked, matches)
+            })
+        })
+        .collect();
+    for (sf, read) in seal_files.iter().zip(compared) {
         files_checked += 1;
-        let file = loaded.file(&sf.file);
-        let bytes = match std::fs::read(&file) {
-            Ok(b) => b,
-            Err(_) => {
-                problem(&sf.file, format!("the {} seal file is missing or unreadable", sf.kind.name()));
-                continue;
-            }
+        let Some((summary, checked, matches)) = read else {
+            problem(&sf.file, format!("the {} seal file is missing or unreadable", sf.kind.name()));
+            continue;
         };
-        if bytes.len() as u64 != sf.bytes {
-            problem(&sf.file, format!("size is {} bytes, the seal says {}", bytes.len(), sf.bytes));
+        if summary.bytes != sf.bytes {
+            problem(&sf.file, format!("size is {} bytes, the seal says {}", summary.bytes, sf.bytes));
         }
-        let sum = blake3::hash(&bytes).to_hex().to_string();
-        if sum != sf.blake3 {
-            problem(&sf.file, format!("BLAKE3 is {sum}, the seal says {}", sf.blake3));
+        if summary.blake3 != sf.blake3 {
+            problem(&sf.file, format!("BLAKE3 is {}, the seal says {}", summary.blake3, sf.blake3));
         }
-        match seal::decode(&bytes) {
+        match checked {
             Err(e) => problem(&sf.file, e),
             Ok(records) => {
-                if records.len() as u64 != sf.records {
-                    problem(&sf.file, format!("holds {} records, the seal says {}", records.len(), sf.records));
+                if records as u64 != sf.records {
+                    problem(&sf.file, format!("holds {records} records, the seal says {}", sf.records));
                 }
-                if let Some((test, groups)) = &test_digests {
-                    let mut expected =
-                        if sf.kind == SealKind::Groups { groups.clone() } else { seal_records(test, sf.kind) };
-                    expected.sort_unstable();
-                    if expected != records {
-                        problem(&sf.file, format!("its {} digests do not match the test partition's rows", sf.kind.name()));
-                    }
+                if !matches {
+                    problem(&sf.file, format!("its {} digests do not match the test partition's rows", sf.kind.name()));
                 }
             }
         }
@@ -219,7 +257,38 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, shareable
             problem(&manifest_name, format!("the seal lists no {} digest file", kind.name()));
         }
     }
-    Ok(VerifyReport { manifest_checksum: loaded.recorded.clone(), problems, files_checked, rows_checked, redigested: redigest })
+    Ok(VerifyReport {
+        manifest_checksum: loaded.recorded.clone(),
+        problems,
+        files_checked,
+        rows_checked,
+        partitions_redigested,
+        redigested: redigest,
+    })
+}
+
+/// Whether sorted seal file records are exactly the `kind` digests of the test
+/// rows, each with its row: as many records as rows, every row once, each
+/// with its row's digest. Sorted and distinct, they can then only be the
+/// test rows' records in order, with no sort of the expected records.
+fn seal_matches(bytes: &[u8], test: &[(RowDigests, u64)], kind: SealKind) -> bool {
+    let mut seen = vec![false; test.len()];
+    bytes.len() / seal::RECORD_BYTES == test.len()
+        && seal::records(bytes).all(|(digest, row)| {
+            let at = row.checked_sub(1).and_then(|i| usize::try_from(i).ok()).filter(|&i| i < test.len());
+            at.is_some_and(|i| {
+                let (d, r) = &test[i];
+                *r == row && !std::mem::replace(&mut seen[i], true) && kind_digest(d, kind) == digest
+            })
+        })
+}
+
+/// A seal file's size and BLAKE3, and its bytes; `None` when it cannot be
+/// read.
+fn read_seal_file(path: &Path) -> Option<(io::FileSummary, Vec<u8>)> {
+    let bytes = std::fs::read(path).ok()?;
+    let blake3 = blake3::Hasher::new().update_rayon(&bytes).finalize().to_hex().to_string();
+    Some((io::FileSummary { bytes: bytes.len() as u64, blake3 }, bytes))
 }
 
 /// What re-reading a partition yields.
@@ -242,6 +311,7 @@ fn digest_partition(
     group: Option<&GroupSpec>,
     fold_column: Option<&str>,
     is_test: bool,
+    rows_hint: usize,
 ) -> Result<Content> {
     let table = Table::open(path, format, hints)?;
     spec.bind(path, &table.schema())?;
@@ -254,45 +324,86 @@ fn digest_partition(
     if let (Some(g), true) = (group, is_test) {
         columns.extend(g.columns().iter().cloned());
     }
-    let mut content = Content { rows: Vec::new(), all: Vec::new(), groups: Vec::new(), folds: BTreeMap::new() };
+    let mut content = Content {
+        rows: Vec::with_capacity(rows_hint),
+        all: Vec::with_capacity(if is_test { rows_hint } else { 0 }),
+        groups: Vec::new(),
+        folds: BTreeMap::new(),
+    };
     let mut batches = table.batches(Some(&columns), false)?.read_ahead();
-    let mut buf = Vec::new();
+    // Several batches digested side by side, merged in file order.
+    let mut pending = Vec::with_capacity(BATCHES_IN_FLIGHT);
     let mut group_first: crate::digest::DigestMap<u64> = Default::default();
-    let mut group_digests = Vec::new();
-    while let Some(batch) = batches.next_batch()? {
-        let bound = spec.bind(path, &batch.data.schema())?;
-        if !is_test {
-            bound.row_digests(&batch.data, &mut content.rows)?;
-        } else {
-            let idx: Vec<usize> = (0..batch.data.num_rows()).collect();
-            buf.clear();
-            bound.all_digests(&batch.data, &idx, &mut buf)?;
-            for (i, d) in buf.drain(..).enumerate() {
-                content.rows.push(d.row);
-                content.all.push((d, batch.first_row + i as u64));
-            }
-            if let Some(g) = group {
-                group_digests.clear();
-                g.digests(path, &batch.data, &mut group_digests)?;
-                for (i, d) in group_digests.iter().enumerate() {
-                    group_first.entry(*d).or_insert(batch.first_row + i as u64);
+    loop {
+        let next = batches.next_batch()?;
+        let done = next.is_none();
+        pending.extend(next);
+        if pending.len() == BATCHES_IN_FLIGHT || (done && !pending.is_empty()) {
+            let digested: Vec<Result<Content>> =
+                pending.par_iter().map(|b| digest_batch(path, spec, group, fold_column, is_test, b)).collect();
+            pending.clear();
+            for part in digested {
+                let part = part?;
+                content.rows.extend(part.rows);
+                content.all.extend(part.all);
+                for (digest, row) in part.groups {
+                    group_first.entry(digest).or_insert(row);
+                }
+                for (fold, n) in part.folds {
+                    *content.folds.entry(fold).or_insert(0) += n;
                 }
             }
         }
-        if let Some(f) = fold_column {
-            let col = batch.data.column_by_name(f).expect("checked above");
-            let ints = arrow_cast::cast(col, &arrow_schema::DataType::Int64)
-                .map_err(|e| crate::Error::malformed(path, format!("fold column `{f}`: {e}")))?;
-            let ints = ints.as_primitive::<arrow_array::types::Int64Type>();
-            for i in 0..ints.len() {
-                if ints.is_null(i) || ints.value(i) < 0 || ints.value(i) > u32::MAX as i64 {
-                    return Err(batch.error_at(path, i, f, "is not a fold number"));
-                }
-                *content.folds.entry(ints.value(i) as u32).or_insert(0) += 1;
-            }
+        if done {
+            break;
         }
     }
+    // Each group's digest with the first row that holds it.
     content.groups = group_first.into_iter().collect();
-    content.groups.sort_unstable();
+    seal::sort(&mut content.groups);
+    Ok(content)
+}
+
+/// Batches of a partition digested at once.
+const BATCHES_IN_FLIGHT: usize = 8;
+
+/// One batch's share of [`Content`]; its `groups` hold every row's group
+/// digest.
+fn digest_batch(
+    path: &Path,
+    spec: &DigestSpec,
+    group: Option<&GroupSpec>,
+    fold_column: Option<&str>,
+    is_test: bool,
+    batch: &io::Batch,
+) -> Result<Content> {
+    let mut content = Content { rows: Vec::new(), all: Vec::new(), groups: Vec::new(), folds: BTreeMap::new() };
+    let bound = spec.bind(path, &batch.data.schema())?;
+    if !is_test {
+        bound.row_digests(&batch.data, &mut content.rows)?;
+    } else {
+        let idx: Vec<usize> = (0..batch.data.num_rows()).collect();
+        let mut digests = Vec::with_capacity(idx.len());
+        bound.all_digests(&batch.data, &idx, &mut digests)?;
+        content.rows.extend(digests.iter().map(|d| d.row));
+        content.all.extend(digests.into_iter().zip(batch.first_row..));
+        if let Some(g) = group {
+            let mut group_digests = Vec::with_capacity(idx.len());
+            g.digests(path, &batch.data, &mut group_digests)?;
+            content.groups.extend(group_digests.into_iter().zip(batch.first_row..));
+        }
+    }
+    if let Some(f) = fold_column {
+        let col = batch.data.column_by_name(f).expect("checked above");
+        let ints = arrow_cast::cast(col, &arrow_schema::DataType::Int64)
+            .map_err(|e| crate::Error::malformed(path, format!("fold column `{f}`: {e}")))?;
+        let ints = ints.as_primitive::<arrow_array::types::Int64Type>();
+        for i in 0..ints.len() {
+            if ints.is_null(i) || ints.value(i) < 0 || ints.value(i) > u32::MAX as i64 {
+                return Err(batch.error_at(path, i, f, "is not a fold number"));
+            }
+            *content.folds.entry(ints.value(i) as u32).or_insert(0) += 1;
+        }
+    }
     Ok(content)
 }

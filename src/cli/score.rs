@@ -130,7 +130,7 @@ pub fn run_score(args: ScoreArgs) -> anyhow::Result<Outcome> {
         anyhow::bail!("--resamples must be at least 1");
     }
     let metric = args.metric.as_deref().map(Metric::parse).transpose()?;
-    let report = crate::verify::verify(&args.against, pin.as_deref(), None, false)?;
+    let report = crate::verify::verify(&args.against, pin.as_deref(), None, Default::default())?;
     if !report.intact() {
         let p = &report.problems[0];
         anyhow::bail!(

@@ -21,6 +21,9 @@ pub struct Args {
     /// The folder is the modelling team's copy: skip the labelled test partition and the row digests.
     #[arg(long)]
     shareable: bool,
+    /// Re-read and re-digest every partition, not only the test partition (files are hashed either way).
+    #[arg(long)]
+    deep: bool,
     /// Print one JSON document instead of text.
     #[arg(long)]
     json: bool,
@@ -29,7 +32,8 @@ pub struct Args {
 pub fn run(args: Args) -> anyhow::Result<Outcome> {
     let pin = args.expect_manifest.as_deref().map(manifest::parse_pin).transpose()?;
     let key = args.digest_key.as_deref().map(crate::digest::DigestKey::read).transpose()?;
-    let report = crate::verify::verify(&args.path, pin.as_deref(), key.as_ref(), args.shareable)?;
+    let depth = crate::verify::Depth { shareable: args.shareable, deep: args.deep };
+    let report = crate::verify::verify(&args.path, pin.as_deref(), key.as_ref(), depth)?;
     let shown = output::sanitize(&args.path.display().to_string());
     if args.json {
         output::json(&json!({
@@ -40,6 +44,8 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
             "files_checked": report.files_checked,
             "rows_checked": report.rows_checked,
             "redigested": report.redigested,
+            "partitions_redigested": report.partitions_redigested,
+            "deep": args.deep,
             "problems": report.problems,
         }))?;
     } else if report.intact() {
@@ -47,7 +53,13 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
             "intact: `{shown}` ({} files, {})\nmanifest checksum: {}{}\n",
             report.files_checked,
             if report.redigested {
-                format!("{} rows re-digested", report.rows_checked)
+                let rows = report.rows_checked;
+                match (args.deep, report.partitions_redigested) {
+                    (true, _) => format!("{rows} rows of every partition re-digested"),
+                    (false, 0) => "checksums only: a shareable copy holds no labelled test rows".to_string(),
+                    (false, 1) => format!("{rows} rows of the test partition re-digested; --deep re-digests every partition"),
+                    (false, n) => format!("{rows} rows of {n} partitions re-digested; --deep re-digests every partition"),
+                }
             } else {
                 "checksums only: the seal is keyed; pass --digest-key to re-digest the rows".to_string()
             },

@@ -929,16 +929,16 @@ pub fn write_seal(dir: &Path, test: &[(RowDigests, u64)], groups: Option<&[seal:
 
 /// The records of one row-level seal kind.
 pub fn seal_records(test: &[(RowDigests, u64)], kind: SealKind) -> Vec<seal::SealRecord> {
-    test.iter()
-        .map(|(d, row)| {
-            let digest = match kind {
-                SealKind::Rows => d.row,
-                SealKind::Features => d.features,
-                SealKind::Loose | SealKind::Groups => d.loose,
-            };
-            (digest, *row)
-        })
-        .collect()
+    test.iter().map(|(d, row)| (kind_digest(d, kind), *row)).collect()
+}
+
+/// A row's digest of one row-level seal kind.
+pub fn kind_digest(d: &RowDigests, kind: SealKind) -> crate::digest::RowDigest {
+    match kind {
+        SealKind::Rows => d.row,
+        SealKind::Features => d.features,
+        SealKind::Loose | SealKind::Groups => d.loose,
+    }
 }
 
 fn sync_dir(path: &Path) -> Result<()> {
