@@ -207,6 +207,13 @@ impl Seal {
     }
 }
 
+/// What one checked row matched: the sealed test row of its row, features
+/// and loose digests, and its sealed group digest with that group's row.
+struct Hits {
+    sealed: [Option<u64>; 3],
+    group: Option<(RowDigest, u64)>,
+}
+
 /// Options of a check.
 #[derive(Debug, Clone)]
 pub struct CheckOptions {
@@ -471,7 +478,6 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
     if !needed.is_empty() {
         let mut batches = table.batches(Some(needed.as_slice()), false)?.read_ahead();
         let mut times = Vec::new();
-        let mut group_digests = Vec::new();
         while let Some(batch) = batches.next_batch()? {
             // Read every needed column the sealed way.
             let mut fields = Vec::new();
@@ -489,53 +495,68 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
             let line = |i: usize| conformed.lines.as_ref().map(|l| l[i]);
             let row_no = |i: usize| conformed.first_row + i as u64;
             let all: Vec<usize> = (0..n).collect();
-            // Digests and seal lookups run in parallel; hits come back in row
-            // order, so examples do not depend on the number of threads.
-            if features_ok {
-                let bound = if rows_ok {
-                    seal.spec.bind(path, &conformed.data.schema())?
-                } else {
-                    seal.spec.bind_features(path, &conformed.data.schema())?
-                };
-                let enc = bound.encoder(&conformed.data)?;
-                let rows_seal = seal.rows.as_ref().filter(|_| rows_ok);
-                // Lookups apart from hashing, pipelined chunk by chunk (the
-                // chunks of `all`, which is 0..n, are runs of row indices).
-                let digests = digest::par_chunks(&all, |rows, scratch, out| enc.all(rows, scratch, out));
-                let hits = digest::par_chunks(&all, |rows, _, out| {
-                    let ds = &digests[rows[0]..rows[0] + rows.len()];
-                    let mut found: [Vec<Option<u64>>; 3] = Default::default();
-                    match rows_seal {
-                        Some(s) => s.get_many(ds.len(), |i| &ds[i].row, &mut found[0]),
-                        None => found[0].resize(ds.len(), None),
-                    }
-                    seal.features.get_many(ds.len(), |i| &ds[i].features, &mut found[1]);
-                    seal.loose.get_many(ds.len(), |i| &ds[i].loose, &mut found[2]);
-                    out.extend((0..ds.len()).map(|i| [found[0][i], found[1][i], found[2][i]]));
-                });
-                for (i, h) in hits.iter().enumerate() {
-                    for (kind, t) in [Kind::Row, Kind::Features, Kind::Near].into_iter().zip(h) {
-                        if let Some(t) = t {
-                            collectors.get_mut(&kind).expect("on").hit(row_no(i), line(i), Some(*t));
+            // Digests and seal lookups run in parallel, chunk by chunk (the
+            // chunks of `all`, which is 0..n, are runs of row indices); hits
+            // come back in row order, so examples do not depend on the
+            // number of threads.
+            let bound = match (features_ok, rows_ok) {
+                (true, true) => Some(seal.spec.bind(path, &conformed.data.schema())?),
+                (true, false) => Some(seal.spec.bind_features(path, &conformed.data.schema())?),
+                (false, _) => None,
+            };
+            let enc = bound.as_ref().map(|b| b.encoder(&conformed.data)).transpose()?;
+            let group_enc = match (groups_ok, &seal.group_spec) {
+                (true, Some(g)) => Some(g.encoder(path, &conformed.data)?),
+                _ => None,
+            };
+            let rows_seal = seal.rows.as_ref().filter(|_| rows_ok);
+            let hits = digest::par_chunks(&all, |rows, scratch, out: &mut Vec<Hits>| {
+                let n = rows.len();
+                let mut found: [Vec<Option<u64>>; 3] = Default::default();
+                if let Some(enc) = &enc {
+                    let mut digests = Vec::with_capacity(n);
+                    enc.features_and_loose(rows, scratch, &mut digests);
+                    seal.features.get_many(n, |i| &digests[i].0, &mut found[1]);
+                    seal.loose.get_many(n, |i| &digests[i].1, &mut found[2]);
+                    found[0].resize(n, None);
+                    // A row is sealed only if its features are: the seal's
+                    // row and features digests come from the same test rows.
+                    // So only the rows whose features were found are hashed
+                    // whole.
+                    if let Some(s) = rows_seal {
+                        let picks: Vec<usize> = (0..n).filter(|&i| found[1][i].is_some()).collect();
+                        let mut whole = Vec::with_capacity(picks.len());
+                        enc.rows_among(scratch, &picks, &mut whole);
+                        for (&i, d) in picks.iter().zip(&whole) {
+                            found[0][i] = s.get(d);
                         }
                     }
-                }
-            }
-            if groups_ok {
-                group_digests.clear();
-                seal.group_spec.as_ref().expect("groups").digests(path, &conformed.data, &mut group_digests)?;
-                let sealed = seal.groups.as_ref().expect("groups seal");
-                let hits = digest::par_chunks(&all, |rows, _, out| {
-                    let ds = &group_digests[rows[0]..rows[0] + rows.len()];
-                    let mut found = Vec::with_capacity(ds.len());
-                    sealed.get_many(ds.len(), |i| &ds[i], &mut found);
-                    out.extend(found.iter().zip(ds).map(|(t, d)| t.map(|t| (*d, t))));
-                });
-                for (i, h) in hits.iter().enumerate() {
-                    if let Some((d, t)) = h {
-                        distinct_groups.insert(*d);
-                        collectors.get_mut(&Kind::Group).expect("on").hit(row_no(i), line(i), Some(*t));
+                } else {
+                    for f in found.iter_mut() {
+                        f.resize(n, None);
                     }
+                }
+                let mut group = Vec::new();
+                if let (Some(g), Some(sealed)) = (&group_enc, &seal.groups) {
+                    let mut ds = Vec::with_capacity(n);
+                    g.digests(rows, scratch, &mut ds);
+                    let mut at = Vec::with_capacity(n);
+                    sealed.get_many(n, |i| &ds[i], &mut at);
+                    group.extend(at.iter().zip(&ds).map(|(t, d)| t.map(|t| (*d, t))));
+                } else {
+                    group.resize(n, None);
+                }
+                out.extend((0..n).map(|i| Hits { sealed: [found[0][i], found[1][i], found[2][i]], group: group[i] }));
+            });
+            for (i, h) in hits.iter().enumerate() {
+                for (kind, t) in [Kind::Row, Kind::Features, Kind::Near].into_iter().zip(&h.sealed) {
+                    if let Some(t) = t {
+                        collectors.get_mut(&kind).expect("on").hit(row_no(i), line(i), Some(*t));
+                    }
+                }
+                if let Some((d, t)) = h.group {
+                    distinct_groups.insert(d);
+                    collectors.get_mut(&Kind::Group).expect("on").hit(row_no(i), line(i), Some(t));
                 }
             }
             if let Some(o) = time {

@@ -299,9 +299,63 @@ impl BatchEncoder<'_> {
     /// before the labels, and the loose encoding is derived from the exact
     /// bytes.
     pub fn all(&self, rows: &[usize], scratch: &mut Scratch, out: &mut Vec<RowDigests>) {
+        self.encode_all(rows, scratch);
+        let Scratch { exact: buf, loose, ranges, digests, .. } = scratch;
+        for d in digests.iter_mut() {
+            d.clear();
+        }
+        let [features, whole, loosened] = digests;
+        lanes::keyed_many(&self.spec.row_key, buf, &ranges[0], features);
+        if self.has_labels() {
+            lanes::keyed_many(&self.spec.row_key, buf, &ranges[1], whole);
+        }
+        lanes::keyed_many(&self.spec.loose_key, loose, &ranges[2], loosened);
+        for (i, (&features, &loose)) in features.iter().zip(loosened.iter()).enumerate() {
+            let row = whole.get(i).copied().unwrap_or(features);
+            out.push(RowDigests { row, features, loose });
+        }
+    }
+
+    /// The features and loose digests of `rows`, appended to `out` in that
+    /// order. The rows' encodings stay in `scratch` for
+    /// [`BatchEncoder::rows_among`], until the scratch is next used.
+    pub fn features_and_loose(&self, rows: &[usize], scratch: &mut Scratch, out: &mut Vec<(RowDigest, RowDigest)>) {
+        self.encode_all(rows, scratch);
+        let Scratch { exact: buf, loose, ranges, digests, .. } = scratch;
+        for d in digests.iter_mut() {
+            d.clear();
+        }
+        let [features, _, loosened] = digests;
+        lanes::keyed_many(&self.spec.row_key, buf, &ranges[0], features);
+        lanes::keyed_many(&self.spec.loose_key, loose, &ranges[2], loosened);
+        out.extend(features.iter().copied().zip(loosened.iter().copied()));
+    }
+
+    /// The row digests of the rows at positions `picks` of the last
+    /// [`BatchEncoder::features_and_loose`] call on `scratch`, appended to
+    /// `out` in that order.
+    pub fn rows_among(&self, scratch: &mut Scratch, picks: &[usize], out: &mut Vec<RowDigest>) {
+        let Scratch { exact: buf, ranges, digests, .. } = scratch;
+        if !self.has_labels() {
+            out.extend(picks.iter().map(|&i| digests[0][i]));
+            return;
+        }
+        let [_, whole, _] = ranges;
+        let picked: Vec<Range<usize>> = picks.iter().map(|&i| whole[i].clone()).collect();
+        lanes::keyed_many(&self.spec.row_key, buf, &picked, out);
+    }
+
+    fn has_labels(&self) -> bool {
+        self.spec.features.len() < self.encoders.len()
+    }
+
+    /// Encodes `rows` end to end into `scratch`: the exact bytes with the
+    /// features' range of each row (ranges 0) and the whole row's (ranges
+    /// 1), the loose bytes of the features (ranges 2).
+    fn encode_all(&self, rows: &[usize], scratch: &mut Scratch) {
         let n_features = self.spec.features.len();
         scratch.caches(self.encoders.len());
-        let Scratch { exact: buf, loose, ranges, digests, caches } = scratch;
+        let Scratch { exact: buf, loose, ranges, caches, .. } = scratch;
         buf.clear();
         loose.clear();
         for r in ranges.iter_mut() {
@@ -319,19 +373,6 @@ impl BatchEncoder<'_> {
             }
             ranges[1].push(start..buf.len());
             ranges[2].push(loose_start..loose.len());
-        }
-        for d in digests.iter_mut() {
-            d.clear();
-        }
-        let [features, whole, loosened] = digests;
-        lanes::keyed_many(&self.spec.row_key, buf, &ranges[0], features);
-        if n_features < self.encoders.len() {
-            lanes::keyed_many(&self.spec.row_key, buf, &ranges[1], whole);
-        }
-        lanes::keyed_many(&self.spec.loose_key, loose, &ranges[2], loosened);
-        for (i, (&features, &loose)) in features.iter().zip(loosened.iter()).enumerate() {
-            let row = whole.get(i).copied().unwrap_or(features);
-            out.push(RowDigests { row, features, loose });
         }
     }
 }
@@ -804,7 +845,9 @@ impl Encoder {
             }
             Kind::Utf8(a) => {
                 let s = a.value(row);
-                if loose {
+                if loose && s.is_ascii() {
+                    with_len(out, TAG_STRING, |o| normalise_ascii_into(s.as_bytes(), o));
+                } else if loose {
                     let n = LOOSE_TEXT.with(|cell| {
                         let mut buf = cell.take();
                         buf.clear();
@@ -863,15 +906,16 @@ pub fn normalise_text(s: &str) -> String {
 /// takes a fast path: NFKC leaves it as it is and case folding is lowering.
 pub fn normalise_text_into(s: &str, out: &mut String) {
     if s.is_ascii() {
-        // char::is_whitespace, as the general path uses (it includes U+000B).
-        for word in s.split(char::is_whitespace).filter(|w| !w.is_empty()) {
-            if !out.is_empty() {
-                out.push(' ');
-            }
-            out.extend(word.chars().map(|c| c.to_ascii_lowercase()));
-        }
+        let mut bytes = std::mem::take(out).into_bytes();
+        normalise_ascii_into(s.as_bytes(), &mut bytes);
+        *out = String::from_utf8(bytes).expect("ASCII in, ASCII out");
         return;
     }
+    normalise_unicode_into(s, out);
+}
+
+/// [`normalise_text_into`] by the general path, for any text.
+fn normalise_unicode_into(s: &str, out: &mut String) {
     use unicode_normalization::UnicodeNormalization;
     let folded: String = caseless::default_case_fold_str(&s.nfkc().collect::<String>());
     let again: String = folded.nfkc().collect();
@@ -881,6 +925,27 @@ pub fn normalise_text_into(s: &str, out: &mut String) {
             out.push(' ');
         }
         out.push_str(word);
+    }
+}
+
+/// [`normalise_text_into`] of ASCII text, byte by byte into `out`: words
+/// lowered and joined by single spaces. The whitespace is that of
+/// `char::is_whitespace` within ASCII: tab, line feed, vertical tab, form
+/// feed, carriage return and space.
+fn normalise_ascii_into(s: &[u8], out: &mut Vec<u8>) {
+    debug_assert!(s.is_ascii());
+    let start = out.len();
+    let mut gap = false;
+    for &b in s {
+        if matches!(b, b'\t' | b'\n' | 0x0b | 0x0c | b'\r' | b' ') {
+            gap = out.len() > start;
+        } else {
+            if gap {
+                out.push(b' ');
+                gap = false;
+            }
+            out.push(b.to_ascii_lowercase());
+        }
     }
 }
 
@@ -1004,6 +1069,26 @@ mod tests {
         assert_eq!(normalise_text("Stra\u{DF}e"), "strasse");
         assert_eq!(normalise_text("  Low   Flow\tnear weir "), "low flow near weir");
         assert_eq!(normalise_text("e\u{301}"), "\u{E9}");
+    }
+
+    /// The ASCII fast path gives what NFKC and case folding give: every
+    /// ASCII character, control characters among them, in every position,
+    /// next to the whitespace characters in runs.
+    #[test]
+    fn ascii_fast_path_agrees_with_the_unicode_path() {
+        let mut texts: Vec<String> = (0u8..128).map(|c| format!("A{}b {} {}Z", c as char, c as char, c as char)).collect();
+        texts.extend(["", " ", "\t\n\x0b\x0c\r ", "  Low   Flow\tnear weir ", "\x1c\x1d\x1e\x1f", "X\x0bY\x0cZ\rW"].map(String::from));
+        let all: String = (0u8..128).map(char::from).collect();
+        texts.push(all.clone());
+        texts.push(all.chars().rev().collect());
+        for t in &texts {
+            let mut fast = Vec::new();
+            normalise_ascii_into(t.as_bytes(), &mut fast);
+            let mut general = String::new();
+            normalise_unicode_into(t, &mut general);
+            assert_eq!(String::from_utf8(fast).unwrap(), general, "{t:?}");
+            assert_eq!(normalise_text(t), general, "{t:?}");
+        }
     }
 
     /// The first 128 bits of the `blake3` crate's keyed hash: the reference.
