@@ -208,10 +208,10 @@ impl Seal {
 }
 
 /// What one checked row matched: the sealed test row of its row, features
-/// and loose digests, and its sealed group digest with that group's row.
+/// and loose digests, and of its group digest (the group's first test row).
 struct Hits {
     sealed: [Option<u64>; 3],
-    group: Option<(RowDigest, u64)>,
+    group: Option<u64>,
 }
 
 /// Options of a check.
@@ -473,7 +473,10 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
             collectors.insert(kind, Collector::new(opts.max_examples));
         }
     }
-    let mut distinct_groups: HashSet<RowDigest, std::hash::BuildHasherDefault<digest::DigestBits>> = HashSet::default();
+    // Distinct sealed groups found, by the test row each group's seal record
+    // names (its first row: one per group), as bits.
+    let mut distinct_groups = vec![0u64; (seal.test_rows() as usize).div_ceil(64) + 1];
+    let mut groups_elsewhere: HashSet<u64> = HashSet::new();
     let mut rows_checked = 0u64;
     if !needed.is_empty() {
         let mut batches = table.batches(Some(needed.as_slice()), false)?.read_ahead();
@@ -542,7 +545,7 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
                     g.digests(rows, scratch, &mut ds);
                     let mut at = Vec::with_capacity(n);
                     sealed.get_many(n, |i| &ds[i], &mut at);
-                    group.extend(at.iter().zip(&ds).map(|(t, d)| t.map(|t| (*d, t))));
+                    group.extend(at);
                 } else {
                     group.resize(n, None);
                 }
@@ -554,8 +557,13 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
                         collectors.get_mut(&kind).expect("on").hit(row_no(i), line(i), Some(*t));
                     }
                 }
-                if let Some((d, t)) = h.group {
-                    distinct_groups.insert(d);
+                if let Some(t) = h.group {
+                    match distinct_groups.get_mut((t / 64) as usize) {
+                        Some(word) => *word |= 1 << (t % 64),
+                        None => {
+                            groups_elsewhere.insert(t);
+                        }
+                    }
                     collectors.get_mut(&Kind::Group).expect("on").hit(row_no(i), line(i), Some(t));
                 }
             }
@@ -586,7 +594,8 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
     }
     let mut findings: BTreeMap<Kind, Finding> = collectors.into_iter().map(|(k, c)| (k, c.finding)).collect();
     if let Some(g) = findings.get_mut(&Kind::Group) {
-        g.distinct = Some(distinct_groups.len() as u64);
+        let counted: u64 = distinct_groups.iter().map(|w| u64::from(w.count_ones())).sum();
+        g.distinct = Some(counted + groups_elsewhere.len() as u64);
     }
     Ok(FileReport { file: path.to_path_buf(), rows_checked, findings, not_checked, not_applicable })
 }

@@ -126,6 +126,12 @@ fn injected_leaks_are_counted_exactly_and_the_train_partition_is_clean() {
     for k in ["row", "features", "near", "group"] {
         assert_eq!(test["findings"][k]["count"].as_u64().unwrap(), test_rows, "every test row is flagged as {k}");
     }
+    // The group finding also counts the distinct sealed groups: every
+    // station of the test partition.
+    let stations: HashSet<String> = records(&t.path("out/test.csv")).into_iter().map(|r| r[0].clone()).collect();
+    assert_eq!(header(&t.path("out/test.csv"))[0], "station");
+    assert!(stations.len() > 1);
+    assert_eq!(test["findings"]["group"]["distinct_per_file"], serde_json::json!([stations.len()]), "{}", test["findings"]["group"]);
     let l = leaky(&t);
     t.write("later.csv", &l.text);
     let r = t.run(&["check", "later.csv", "--against", "out", "--json", "--max-examples", "20"]);
