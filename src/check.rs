@@ -331,13 +331,7 @@ const NEXT: usize = 4;
 /// Asks for the cache line holding `r` (a hint: no effect on results).
 #[inline(always)]
 fn prefetch<T>(r: &T) {
-    #[cfg(target_arch = "x86_64")]
-    // SAFETY: a prefetch reads nothing and cannot fault; `r` is a valid reference.
-    unsafe {
-        std::arch::x86_64::_mm_prefetch::<{ std::arch::x86_64::_MM_HINT_T0 }>((r as *const T).cast());
-    }
-    #[cfg(not(target_arch = "x86_64"))]
-    let _ = r;
+    digest::prefetch_ptr(r as *const T);
 }
 
 /// Makes a column of the checked file read the way the seal reads it: text
