@@ -582,15 +582,22 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         }
         // Each row is encoded once: test rows yield all their digests, the
         // others their row digest.
+        // The test rows and the others are digested side by side, so that
+        // neither waits on the other's last chunk.
         let test_rows: Vec<usize> = indices[test_index].iter().map(|&i| i as usize).collect();
+        let other_rows: Vec<usize> =
+            (0..n).filter(|&i| assigned[i] != DROPPED && assigned[i] as usize != test_index).collect();
         test_digests.clear();
-        bound.all_digests(&batch.data, &test_rows, &mut test_digests)?;
+        batch_digests.clear();
+        let (tested, others) = rayon::join(
+            || bound.all_digests(&batch.data, &test_rows, &mut test_digests),
+            || bound.row_digests_of(&batch.data, &other_rows, &mut batch_digests),
+        );
+        tested?;
+        others?;
         digests[test_index].extend(test_digests.iter().map(|d| d.row));
-        for p in 0..test_index {
-            let rows: Vec<usize> = indices[p].iter().map(|&i| i as usize).collect();
-            batch_digests.clear();
-            bound.row_digests_of(&batch.data, &rows, &mut batch_digests)?;
-            digests[p].extend_from_slice(&batch_digests);
+        for (&i, d) in other_rows.iter().zip(&batch_digests) {
+            digests[assigned[i] as usize].push(*d);
         }
         for (j, d) in test_digests.drain(..).enumerate() {
             let row = test_seal.len() as u64 + 1;
