@@ -317,7 +317,7 @@ impl BatchEncoder<'_> {
     }
 
     /// The features and loose digests of `rows`, appended to `out` in that
-    /// order. The rows' encodings stay in `scratch` for
+    /// order. The rows' encodings and features digests stay in `scratch` for
     /// [`BatchEncoder::rows_among`], until the scratch is next used.
     pub fn features_and_loose(&self, rows: &[usize], scratch: &mut Scratch, out: &mut Vec<(RowDigest, RowDigest)>) {
         self.encode_all(rows, scratch);

@@ -333,3 +333,20 @@ fn type_drift_is_an_error_not_a_clean_result() {
     t.write("bad-time.csv", bad);
     t.run(&["check", "bad-time.csv", "--against", "out"]).fails_with(&["bad-time.csv", "line 2", "sample_time"]);
 }
+
+/// Without --label the row digest is the features digest, so every test
+/// row is a row finding and a features finding, and the train file neither.
+#[test]
+fn without_a_label_rows_and_features_are_found_alike() {
+    let t = Test::new();
+    t.demo();
+    t.ok(&["split", "water-quality.csv", "--out", "out", "--stratify", "bloom_class"]);
+    let test_rows = records(&t.path("out/test.csv")).len() as u64;
+    let j = t.run(&["check", "out/test.csv", "--against", "out", "--json"]).json();
+    for k in ["row", "features", "near"] {
+        assert_eq!(j["findings"][k]["count"].as_u64(), Some(test_rows), "{k}: {}", j["findings"]);
+    }
+    let train = t.run(&["check", "out/train.csv", "--against", "out", "--json"]);
+    assert_eq!(train.code, 0, "{}", train.stdout);
+    assert_eq!(train.json()["findings"]["row"]["count"], 0);
+}
