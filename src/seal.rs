@@ -46,7 +46,7 @@ pub fn decode(bytes: &[u8]) -> Result<Vec<SealRecord>, String> {
 /// # Errors
 /// A length that is not a whole number of records, or records out of order.
 pub fn check_order(bytes: &[u8]) -> Result<usize, String> {
-    if bytes.len() % RECORD_BYTES != 0 {
+    if !bytes.len().is_multiple_of(RECORD_BYTES) {
         return Err(format!("is {} bytes, not a whole number of {RECORD_BYTES}-byte records", bytes.len()));
     }
     let mut prev: Option<SealRecord> = None;
