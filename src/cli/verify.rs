@@ -55,6 +55,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
             if report.redigested {
                 let rows = report.rows_checked;
                 match (args.deep, report.partitions_redigested) {
+                    (true, _) if args.shareable => format!("{rows} rows of every partition but test re-digested"),
                     (true, _) => format!("{rows} rows of every partition re-digested"),
                     (false, 0) => "checksums only: a shareable copy holds no labelled test rows".to_string(),
                     (false, 1) => format!("{rows} rows of the test partition re-digested; --deep re-digests every partition"),
