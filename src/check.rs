@@ -168,8 +168,9 @@ impl Seal {
                 Err(e) if e.kind() == std::io::ErrorKind::NotFound && kind == SealKind::Rows => return Ok(None),
                 Err(e) => return Err(Error::io(&file, "cannot read the seal file", e)),
             };
-            let sum = blake3::hash(&bytes).to_hex().to_string();
-            if sum != sf.blake3 || bytes.len() as u64 != sf.bytes {
+            let summary = io::FileSummary::of(&bytes);
+            if summary.blake3 != sf.blake3 || summary.bytes != sf.bytes {
+                let sum = summary.blake3;
                 return Err(untrusted(&path, format!("lists `{}` with BLAKE3 {}, but the file hashes to {sum}", sf.file, sf.blake3)));
             }
             let recs = seal::decode(&bytes).map_err(|e| untrusted(&file, e))?;

@@ -299,17 +299,13 @@ impl BatchEncoder<'_> {
     /// before the labels, and the loose encoding is derived from the exact
     /// bytes.
     pub fn all(&self, rows: &[usize], scratch: &mut Scratch, out: &mut Vec<RowDigests>) {
-        self.encode_all(rows, scratch);
-        let Scratch { exact: buf, loose, ranges, digests, .. } = scratch;
-        for d in digests.iter_mut() {
-            d.clear();
-        }
+        self.hash_features_and_loose(rows, scratch);
+        let Scratch { exact: buf, ranges, digests, .. } = scratch;
         let [features, whole, loosened] = digests;
-        lanes::keyed_many(&self.spec.row_key, buf, &ranges[0], features);
+        whole.clear();
         if self.has_labels() {
             lanes::keyed_many(&self.spec.row_key, buf, &ranges[1], whole);
         }
-        lanes::keyed_many(&self.spec.loose_key, loose, &ranges[2], loosened);
         for (i, (&features, &loose)) in features.iter().zip(loosened.iter()).enumerate() {
             let row = whole.get(i).copied().unwrap_or(features);
             out.push(RowDigests { row, features, loose });
@@ -320,15 +316,21 @@ impl BatchEncoder<'_> {
     /// order. The rows' encodings and features digests stay in `scratch` for
     /// [`BatchEncoder::rows_among`], until the scratch is next used.
     pub fn features_and_loose(&self, rows: &[usize], scratch: &mut Scratch, out: &mut Vec<(RowDigest, RowDigest)>) {
+        self.hash_features_and_loose(rows, scratch);
+        let [features, _, loosened] = &scratch.digests;
+        out.extend(features.iter().copied().zip(loosened.iter().copied()));
+    }
+
+    /// Encodes `rows` into `scratch` and hashes their features and loose
+    /// digests into its digest lists 0 and 2.
+    fn hash_features_and_loose(&self, rows: &[usize], scratch: &mut Scratch) {
         self.encode_all(rows, scratch);
         let Scratch { exact: buf, loose, ranges, digests, .. } = scratch;
-        for d in digests.iter_mut() {
-            d.clear();
-        }
         let [features, _, loosened] = digests;
+        features.clear();
+        loosened.clear();
         lanes::keyed_many(&self.spec.row_key, buf, &ranges[0], features);
         lanes::keyed_many(&self.spec.loose_key, loose, &ranges[2], loosened);
-        out.extend(features.iter().copied().zip(loosened.iter().copied()));
     }
 
     /// The row digests of the rows at positions `picks` of the last

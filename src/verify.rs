@@ -134,14 +134,17 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
     let parts: Vec<&manifest::PartitionRecord> =
         m.partitions.iter().filter(|p| !(shareable && p.name == Partition::Test)).collect();
     let seal_files: Vec<&manifest::SealFile> = m.seal.files.iter().filter(|f| !shareable || f.shareable).collect();
+    // The fold column, which only train and validation files hold.
+    let fold_column = |part: &manifest::PartitionRecord| {
+        m.folds.as_ref().filter(|_| part.name != Partition::Test).map(|f| f.column.as_str())
+    };
     let digest = |part: &manifest::PartitionRecord| {
         let is_test = part.name == Partition::Test;
-        let fold_column = m.folds.as_ref().filter(|_| !is_test).map(|f| f.column.as_str());
         // The row count the seal gives, capped, sizes the buffers: a
         // wrong one costs only regrowing them.
         let rows_hint = part.rows.min(1 << 24) as usize;
         let file = loaded.file(&part.file);
-        digest_partition(&file, part.format, &hints, &spec, group_spec.as_ref(), fold_column, is_test, rows_hint)
+        digest_partition(&file, part.format, &hints, &spec, group_spec.as_ref(), fold_column(part), is_test, rows_hint)
     };
     // Every file hashed, and the partitions re-read in any case digested,
     // side by side.
@@ -179,7 +182,7 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
         match content {
             Ok(Content { mut rows, all, groups, folds }) => {
                 rows_checked += rows.len() as u64;
-                if !is_test && m.folds.is_some() && !part.folds.is_empty() && folds != part.folds {
+                if fold_column(part).is_some() && !part.folds.is_empty() && folds != part.folds {
                     problem(&part.file, format!("its fold column counts {folds:?} rows per fold, the seal says {:?}", part.folds));
                 }
                 if rows.len() as u64 != part.rows {
@@ -287,8 +290,7 @@ fn seal_matches(bytes: &[u8], test: &[(RowDigests, u64)], kind: SealKind) -> boo
 /// read.
 fn read_seal_file(path: &Path) -> Option<(io::FileSummary, Vec<u8>)> {
     let bytes = std::fs::read(path).ok()?;
-    let blake3 = blake3::Hasher::new().update_rayon(&bytes).finalize().to_hex().to_string();
-    Some((io::FileSummary { bytes: bytes.len() as u64, blake3 }, bytes))
+    Some((io::FileSummary::of(&bytes), bytes))
 }
 
 /// What re-reading a partition yields.

@@ -23,6 +23,15 @@ pub struct FileSummary {
     pub blake3: String,
 }
 
+impl FileSummary {
+    /// The size and BLAKE3 of a file's whole bytes (hashed across threads:
+    /// BLAKE3 is a tree, so the hash is the same).
+    pub fn of(bytes: &[u8]) -> Self {
+        let blake3 = blake3::Hasher::new().update_rayon(bytes).finalize().to_hex().to_string();
+        FileSummary { bytes: bytes.len() as u64, blake3 }
+    }
+}
+
 /// A writer that hashes and counts what passes through it.
 struct Hashing<W> {
     inner: W,
@@ -183,5 +192,5 @@ pub fn write_small(path: &Path, bytes: &[u8]) -> Result<FileSummary> {
         .map_err(|e| Error::io(path, "cannot create", e))?;
     file.write_all(bytes).map_err(|e| Error::io(path, "cannot write", e))?;
     file.sync_all().map_err(|e| Error::io(path, "cannot sync", e))?;
-    Ok(FileSummary { bytes: bytes.len() as u64, blake3: blake3::hash(bytes).to_hex().to_string() })
+    Ok(FileSummary::of(bytes))
 }

@@ -581,9 +581,8 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             }
         }
         // Each row is encoded once: test rows yield all their digests, the
-        // others their row digest.
-        // The test rows and the others are digested side by side, so that
-        // neither waits on the other's last chunk.
+        // others their row digest, the two side by side so that neither
+        // waits on the other's last chunk.
         let test_rows: Vec<usize> = indices[test_index].iter().map(|&i| i as usize).collect();
         let other_rows: Vec<usize> =
             (0..n).filter(|&i| assigned[i] != DROPPED && assigned[i] as usize != test_index).collect();
