@@ -52,7 +52,10 @@ impl<W: Write> Write for Hashing<W> {
     }
 }
 
-type Sink = Hashing<BufWriter<File>>;
+/// The buffer sits before the hasher, so that BLAKE3 sees the file in
+/// writes of a megabyte (hashed many chunks at a time), not in the encoders'
+/// small writes (one 64-byte block at a time).
+type Sink = BufWriter<Hashing<File>>;
 
 enum Inner {
     /// CSV records copied verbatim from a CSV input.
@@ -89,7 +92,7 @@ impl PartitionWriter {
             .create_new(true)
             .open(path)
             .map_err(|e| Error::io(path, "cannot create", e))?;
-        let mut sink = Hashing { inner: BufWriter::with_capacity(1 << 20, file), hasher: blake3::Hasher::new(), bytes: 0 };
+        let mut sink = BufWriter::with_capacity(1 << 20, Hashing { inner: file, hasher: blake3::Hasher::new(), bytes: 0 });
         let enc = |e: &dyn std::fmt::Display| Error::Encode { path: path.to_path_buf(), format, message: e.to_string() };
         let inner = match (format, csv_header) {
             (Format::Csv, Some(header)) => {
@@ -172,8 +175,8 @@ impl PartitionWriter {
                 w.into_inner()
             }
         };
-        let Hashing { inner, hasher, bytes } = sink;
-        let file = inner.into_inner().map_err(|e| Error::io(&path, "cannot write", e.into_error()))?;
+        let Hashing { inner: file, hasher, bytes } =
+            sink.into_inner().map_err(|e| Error::io(&path, "cannot write", e.into_error()))?;
         file.sync_all().map_err(|e| Error::io(&path, "cannot sync", e))?;
         Ok(FileSummary { bytes, blake3: hasher.finalize().to_hex().to_string() })
     }
