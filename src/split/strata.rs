@@ -261,7 +261,79 @@ fn quantile_bins(name: &str, values: &[Option<f64>], k: usize) -> (Vec<u32>, Vec
 fn combine(per_column: Vec<(Vec<u32>, Vec<u32>, Vec<String>, StratumColumn)>) -> Strata {
     let columns: Vec<StratumColumn> = per_column.iter().map(|c| c.3.clone()).collect();
     let rows = per_column.first().map_or(0, |c| c.0.len());
-    // Distinct rank tuples, numbered in sorted order.
+    // Distinct rank tuples, numbered in sorted (lexicographic) order.
+    let (sorted_tuples, row_stratum, sizes) = number_tuples(&per_column, rows);
+    // Labels: rank -> code per column, then the code's label.
+    let code_of_rank: Vec<HashMap<u32, u32>> = per_column
+        .iter()
+        .map(|c| c.1.iter().enumerate().map(|(code, &rank)| (rank, code as u32)).collect())
+        .collect();
+    let mut labels: Vec<String> = sorted_tuples
+        .iter()
+        .map(|t| {
+            t.iter()
+                .enumerate()
+                .map(|(ci, rank)| per_column[ci].2[code_of_rank[ci][rank] as usize].clone())
+                .collect::<Vec<_>>()
+                .join(", ")
+        })
+        .collect();
+    // Labels must name strata uniquely (the manifest keys counts by label).
+    let mut seen: HashMap<String, u32> = HashMap::new();
+    for l in labels.iter_mut() {
+        let n = seen.entry(l.clone()).or_insert(0);
+        *n += 1;
+        if *n > 1 {
+            l.push_str(&format!(" #{n}"));
+        }
+    }
+    Strata { row_stratum, labels, sizes, columns }
+}
+
+/// Most rank tuples a dense table numbers (4 MiB of ids); more go through a
+/// map.
+const DENSE_TUPLES: u64 = 1 << 20;
+
+/// Numbers the distinct rank tuples of the rows in lexicographic order:
+/// the sorted tuples, each row's number and the rows per number.
+///
+/// A tuple read as a mixed-radix number (first column most significant,
+/// each column's base one more than its largest rank) orders as the tuples
+/// do, so while the product of the bases is small a table indexed by that
+/// number replaces hashing one tuple per row.
+fn number_tuples(per_column: &[(Vec<u32>, Vec<u32>, Vec<String>, StratumColumn)], rows: usize) -> (Vec<Vec<u32>>, Vec<u32>, Vec<u64>) {
+    let bases: Vec<u64> = per_column.iter().map(|c| c.1.iter().max().map_or(1, |&m| m as u64 + 1)).collect();
+    let product = bases.iter().try_fold(1u64, |acc, &b| acc.checked_mul(b)).filter(|&p| p <= DENSE_TUPLES);
+    let Some(product) = product else { return number_tuples_by_map(per_column, rows) };
+    let key = |row: usize| per_column.iter().zip(&bases).fold(0u64, |acc, (c, &base)| acc * base + c.1[c.0[row] as usize] as u64);
+    let keys: Vec<u32> = (0..rows).map(|row| key(row) as u32).collect();
+    let mut sizes_by_key = vec![0u64; product as usize];
+    for &k in &keys {
+        sizes_by_key[k as usize] += 1;
+    }
+    let mut id_of = vec![0u32; product as usize];
+    let mut sorted_tuples = Vec::new();
+    let mut sizes = Vec::new();
+    for (k, &n) in sizes_by_key.iter().enumerate() {
+        if n > 0 {
+            id_of[k] = sizes.len() as u32;
+            sizes.push(n);
+            let mut rest = k as u64;
+            let mut tuple = vec![0u32; bases.len()];
+            for (slot, &base) in tuple.iter_mut().zip(&bases).rev() {
+                *slot = (rest % base) as u32;
+                rest /= base;
+            }
+            sorted_tuples.push(tuple);
+        }
+    }
+    let row_stratum = keys.iter().map(|&k| id_of[k as usize]).collect();
+    (sorted_tuples, row_stratum, sizes)
+}
+
+/// [`number_tuples`] for tuples too many for a table: one map entry per
+/// distinct tuple.
+fn number_tuples_by_map(per_column: &[(Vec<u32>, Vec<u32>, Vec<String>, StratumColumn)], rows: usize) -> (Vec<Vec<u32>>, Vec<u32>, Vec<u64>) {
     let mut tuple_ids: BTreeMap<Vec<u32>, u32> = BTreeMap::new();
     let mut provisional = Vec::with_capacity(rows);
     let mut index: HashMap<Vec<u32>, u32> = HashMap::new();
@@ -291,31 +363,7 @@ fn combine(per_column: Vec<(Vec<u32>, Vec<u32>, Vec<String>, StratumColumn)>) ->
             id
         })
         .collect();
-    // Labels: rank -> code per column, then the code's label.
-    let code_of_rank: Vec<HashMap<u32, u32>> = per_column
-        .iter()
-        .map(|c| c.1.iter().enumerate().map(|(code, &rank)| (rank, code as u32)).collect())
-        .collect();
-    let mut labels: Vec<String> = tuple_ids
-        .keys()
-        .map(|t| {
-            t.iter()
-                .enumerate()
-                .map(|(ci, rank)| per_column[ci].2[code_of_rank[ci][rank] as usize].clone())
-                .collect::<Vec<_>>()
-                .join(", ")
-        })
-        .collect();
-    // Labels must name strata uniquely (the manifest keys counts by label).
-    let mut seen: HashMap<String, u32> = HashMap::new();
-    for l in labels.iter_mut() {
-        let n = seen.entry(l.clone()).or_insert(0);
-        *n += 1;
-        if *n > 1 {
-            l.push_str(&format!(" #{n}"));
-        }
-    }
-    Strata { row_stratum, labels, sizes, columns }
+    (tuple_ids.into_keys().collect(), row_stratum, sizes)
 }
 
 /// The strata of a table with no `--stratify`: one stratum of every row.
@@ -339,6 +387,39 @@ mod tests {
         assert_eq!(s.labels, ["class=a", "class=b", "class=<null>"]);
         assert_eq!(s.row_stratum, [1, 2, 0, 1]);
         assert_eq!(s.sizes, [1, 2, 1]);
+    }
+
+    proptest::proptest! {
+        /// The table indexed by mixed-radix tuples numbers strata exactly as
+        /// the map of tuples does (lexicographic order of rank tuples).
+        #[test]
+        fn dense_tuple_numbers_match_the_map(
+            levels in proptest::collection::vec(1usize..7, 1..4),
+            seed in proptest::prelude::any::<u64>(),
+            rows in 1usize..200,
+        ) {
+            let mut state = seed | 1;
+            let mut next = |n: usize| {
+                state ^= state << 13;
+                state ^= state >> 7;
+                state ^= state << 17;
+                (state % n as u64) as u32
+            };
+            let per_column: Vec<(Vec<u32>, Vec<u32>, Vec<String>, StratumColumn)> = levels
+                .iter()
+                .map(|&l| {
+                    // Ranks: a permutation of the codes, as rank_by_label gives.
+                    let mut ranks: Vec<u32> = (0..l as u32).collect();
+                    for i in (1..l).rev() {
+                        ranks.swap(i, next(i + 1) as usize);
+                    }
+                    let codes = (0..rows).map(|_| next(l)).collect();
+                    let info = StratumColumn { name: "c".into(), binned: false, levels: l as u32 };
+                    (codes, ranks, vec![String::new(); l], info)
+                })
+                .collect();
+            proptest::prop_assert_eq!(number_tuples(&per_column, rows), number_tuples_by_map(&per_column, rows));
+        }
     }
 
     #[test]
