@@ -82,4 +82,29 @@ mod tests {
         swapped.extend_from_slice(&bytes[..24]);
         assert!(decode(&swapped).unwrap_err().contains("out of order"));
     }
+
+    /// Records sort as the standard library's sort of (digest, row) tuples,
+    /// across threads; equal digests keep their rows in order.
+    #[test]
+    fn records_sort_by_digest_then_row() {
+        let mut state = 0x2545_F491_4F6C_DD1Du64;
+        let mut records: Vec<SealRecord> = (0..90_000u64)
+            .map(|row| {
+                state ^= state << 13;
+                state ^= state >> 7;
+                state ^= state << 17;
+                let mut d = [0u8; 16];
+                d[..8].copy_from_slice(&state.to_be_bytes());
+                // Every fourth digest is one of a few shared ones.
+                if row % 4 == 0 {
+                    d = [(row % 3) as u8; 16];
+                }
+                (d, 90_000 - row)
+            })
+            .collect();
+        let mut expected = records.clone();
+        expected.sort();
+        sort(&mut records);
+        assert_eq!(records, expected);
+    }
 }
