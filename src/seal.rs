@@ -24,11 +24,20 @@ pub fn sort(records: &mut [SealRecord]) {
 pub fn encode(records: &mut [SealRecord]) -> Vec<u8> {
     sort(records);
     let mut out = Vec::with_capacity(records.len() * RECORD_BYTES);
-    for (digest, row) in records.iter() {
-        out.extend_from_slice(digest);
-        out.extend_from_slice(&row.to_le_bytes());
-    }
+    write_sorted(records, &mut out).expect("writing to memory cannot fail");
     out
+}
+
+/// Writes sorted records as the file holds them.
+///
+/// # Errors
+/// Those of `out`.
+pub fn write_sorted(records: &[SealRecord], out: &mut dyn std::io::Write) -> std::io::Result<()> {
+    for (digest, row) in records {
+        out.write_all(digest)?;
+        out.write_all(&row.to_le_bytes())?;
+    }
+    Ok(())
 }
 
 /// Parses seal file bytes.

@@ -87,12 +87,7 @@ impl PartitionWriter {
         csv_header: Option<&[u8]>,
         compression: Option<Compression>,
     ) -> Result<Self> {
-        let file = File::options()
-            .write(true)
-            .create_new(true)
-            .open(path)
-            .map_err(|e| Error::io(path, "cannot create", e))?;
-        let mut sink = BufWriter::with_capacity(1 << 20, Hashing { inner: file, hasher: blake3::Hasher::new(), bytes: 0 });
+        let mut sink = create_sink(path)?;
         let enc = |e: &dyn std::fmt::Display| Error::Encode { path: path.to_path_buf(), format, message: e.to_string() };
         let inner = match (format, csv_header) {
             (Format::Csv, Some(header)) => {
@@ -175,25 +170,46 @@ impl PartitionWriter {
                 w.into_inner()
             }
         };
-        let Hashing { inner: file, hasher, bytes } =
-            sink.into_inner().map_err(|e| Error::io(&path, "cannot write", e.into_error()))?;
-        file.sync_all().map_err(|e| Error::io(&path, "cannot sync", e))?;
-        Ok(FileSummary { bytes, blake3: hasher.finalize().to_hex().to_string() })
+        finish_sink(&path, sink)
     }
 }
 
-/// Writes a small file whole (seal files, the manifest), synced, and returns
+/// Writes a small file whole (the manifest, a ledger), synced, and returns
 /// its summary.
 ///
 /// # Errors
 /// Disk failures.
 pub fn write_small(path: &Path, bytes: &[u8]) -> Result<FileSummary> {
-    let mut file = File::options()
+    write_streamed(path, |out| out.write_all(bytes))
+}
+
+/// Creates `path` (which must not exist), lets `fill` write its bytes
+/// through a buffer that hashes them on their way to disk, syncs the file and
+/// returns its summary. A large file (a seal file) is thus never held whole.
+///
+/// # Errors
+/// Disk failures.
+pub fn write_streamed(path: &Path, fill: impl FnOnce(&mut dyn Write) -> std::io::Result<()>) -> Result<FileSummary> {
+    let mut sink = create_sink(path)?;
+    fill(&mut sink).map_err(|e| Error::io(path, "cannot write", e))?;
+    finish_sink(path, sink)
+}
+
+/// Creates `path` (which must not exist) behind a hashing buffer.
+fn create_sink(path: &Path) -> Result<Sink> {
+    let file = File::options()
         .write(true)
         .create_new(true)
         .open(path)
         .map_err(|e| Error::io(path, "cannot create", e))?;
-    file.write_all(bytes).map_err(|e| Error::io(path, "cannot write", e))?;
+    Ok(BufWriter::with_capacity(1 << 20, Hashing { inner: file, hasher: blake3::Hasher::new(), bytes: 0 }))
+}
+
+/// Flushes and syncs a file written through [`create_sink`]: its size and
+/// BLAKE3.
+fn finish_sink(path: &Path, sink: Sink) -> Result<FileSummary> {
+    let Hashing { inner: file, hasher, bytes } =
+        sink.into_inner().map_err(|e| Error::io(path, "cannot write", e.into_error()))?;
     file.sync_all().map_err(|e| Error::io(path, "cannot sync", e))?;
-    Ok(FileSummary::of(bytes))
+    Ok(FileSummary { bytes, blake3: hasher.finalize().to_hex().to_string() })
 }

@@ -674,6 +674,13 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         ));
     }
 
+    // The seal files are sorted, written and synced on a thread of their own
+    // while the partitions' digests are sorted and their files finished.
+    let seal_thread = {
+        let dir = staging.path.clone();
+        let groups = facts.groups.as_ref().map(|_| test_groups.into_iter().collect::<Vec<seal::SealRecord>>());
+        SealThread(Some(std::thread::spawn(move || write_seal(&dir, &test_seal, groups.as_deref()))))
+    };
     let source_summary = io::hash_file(&cfg.input)?;
     let time_kind = facts.times.as_ref().map(|(_, kind)| *kind);
     let mut groups_per_partition = vec![0u64; k];
@@ -746,10 +753,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         }
         None => None,
     };
-    // Any order: the seal file sorts its records.
-    let test_group_records: Vec<seal::SealRecord> = test_groups.into_iter().collect();
-    let seal_files =
-        write_seal(&staging.path, &test_seal, facts.groups.as_ref().map(|_| test_group_records.as_slice()))?;
+    let seal_files = seal_thread.join()?;
     let largest_deviation: BTreeMap<String, String> = if facts.groups.is_some() && !stratify.is_empty() {
         counts
             .iter()
@@ -878,6 +882,26 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     Ok(SplitOutcome { manifest, manifest_checksum: checksum, warnings, dropped_by_gap, dropped_by_group })
 }
 
+/// The thread writing the seal files. Dropped on an early return, it is
+/// waited for, so that it is done with the staging folder before the folder
+/// is removed.
+struct SealThread(Option<std::thread::JoinHandle<Result<Vec<SealFile>>>>);
+
+impl SealThread {
+    fn join(mut self) -> Result<Vec<SealFile>> {
+        let handle = self.0.take().expect("joined once");
+        handle.join().unwrap_or_else(|panic| std::panic::resume_unwind(panic))
+    }
+}
+
+impl Drop for SealThread {
+    fn drop(&mut self) {
+        if let Some(handle) = self.0.take() {
+            let _ = handle.join();
+        }
+    }
+}
+
 /// Test rows whose row digest also occurs in another partition (each
 /// partition's digests sorted).
 fn rows_shared_with_test(digests: &[Vec<RowDigest>]) -> u64 {
@@ -918,9 +942,9 @@ pub fn write_seal(dir: &Path, test: &[(RowDigests, u64)], groups: Option<&[seal:
                 (SealKind::Groups, Some(g)) => g.to_vec(),
                 _ => seal_records(test, kind),
             };
-            let bytes = seal::encode(&mut recs);
+            seal::sort(&mut recs);
             let file = format!("seal.{}.bin", kind.name());
-            let summary = io::write_small(&dir.join(&file), &bytes)?;
+            let summary = io::write_streamed(&dir.join(&file), |out| seal::write_sorted(&recs, out))?;
             Ok(SealFile {
                 kind,
                 file,
