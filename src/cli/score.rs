@@ -151,7 +151,8 @@ pub fn run_score(args: ScoreArgs) -> anyhow::Result<Outcome> {
     let (truth, metric) = score::load_truth(&loaded, metric)?;
     let positive = score::positive_class(&truth, metric, args.positive.as_deref())?;
     let seed = loaded.manifest.options.seed;
-    let ids: Vec<String> = (1..=truth.len() as u64).map(|r| crate::split::row_id(seed, r)).collect();
+    let mut ids: Vec<String> = Vec::with_capacity(truth.len());
+    crate::split::RowIds::new(seed).each_id(1..truth.len() as u64 + 1, |id| ids.push(id.to_string()));
     let preds = score::load_predictions(&args.predictions, args.format, &truth, metric, positive, &ids)?;
     let n = truth.len();
     let all: Vec<u32> = (0..n as u32).collect();
