@@ -1052,6 +1052,16 @@ fn write_year(y: i64, out: &mut Vec<u8>) {
 
 /// `YYYY-MM-DD` of days since the epoch.
 pub fn write_date(days: i64, out: &mut Vec<u8>) {
+    thread_local! {
+        /// The last date written on this thread: rows near each other in a
+        /// file mostly fall on the same day.
+        static LAST: std::cell::Cell<(i64, [u8; 10])> = const { std::cell::Cell::new((i64::MIN, [0; 10])) };
+    }
+    let (last_days, last_text) = LAST.get();
+    if days == last_days {
+        out.extend_from_slice(&last_text);
+        return;
+    }
     let (y, m, d) = civil_from_days(days);
     if (0..10_000).contains(&y) {
         // The common case in one copy: every row of a date or timestamp
@@ -1062,6 +1072,7 @@ pub fn write_date(days: i64, out: &mut Vec<u8>) {
         put_digits(&mut text[5..7], m);
         put_digits(&mut text[8..], d);
         out.extend_from_slice(&text);
+        LAST.set((days, text));
         return;
     }
     write_year(y, out);
@@ -1145,6 +1156,11 @@ mod tests {
             secs += stride;
         }
         assert_eq!(ts(last, 0, true), "9999-12-31T23:59:59Z");
+        // Runs of one day, across midnights (the thread's last date reused).
+        for secs in (86_400 * 19_000 - 5..86_400 * 19_000 + 5).chain(-86_400 - 3..3) {
+            let expected = chrono::DateTime::from_timestamp(secs, 0).expect("in range").format("%Y-%m-%dT%H:%M:%S").to_string();
+            assert_eq!(ts(secs, 0, false), expected, "{secs}");
+        }
     }
 
     // Unicode Standard Annex #15, figure 6 and section 1.2: the ligature
