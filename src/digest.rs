@@ -131,6 +131,12 @@ pub fn hex(bytes: &[u8]) -> String {
 /// duplicates (a sorted list, never a XOR or sum). Sorts `digests`.
 pub fn content_digest(digests: &mut [RowDigest]) -> String {
     sort_digests(digests);
+    content_digest_of_sorted(digests)
+}
+
+/// [`content_digest`] of digests already sorted by [`sort_digests`].
+pub fn content_digest_of_sorted(digests: &[RowDigest]) -> String {
+    debug_assert!(digests.is_sorted(), "content digests are taken over sorted digests");
     // The digests lie end to end in memory: one update over all their bytes
     // hashes across threads and whole chunks at a time, where an update per
     // 16-byte digest compressed one block at a time on one thread. BLAKE3

@@ -30,7 +30,7 @@ pub use self::ratio::{Partition, Ratios};
 pub use self::rng::SplitRng;
 pub use self::strata::{Strata, StrataBuilder, StratumColumn};
 pub use self::structure::{format_time, parse_gap, time_values, Groups, TimeKind};
-use crate::digest::{self, content_digest, DigestSpec, GroupSpec, RowDigest, RowDigests};
+use crate::digest::{self, DigestSpec, GroupSpec, RowDigest, RowDigests};
 use crate::error::{Error, Result};
 use crate::io::{self, ColumnType, Format, PartitionWriter, Table, TypeHints};
 use crate::manifest::{
@@ -734,7 +734,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
              deduplicate the input or --group by an identifying column"
         ));
     }
-    for (p, ((file, w), mut d)) in writers.into_iter().zip(digests).enumerate() {
+    for (p, ((file, w), d)) in writers.into_iter().zip(digests).enumerate() {
         let summary = w.finish()?;
         let strata_counts: BTreeMap<String, u64> = if stratify.is_empty() {
             BTreeMap::new()
@@ -748,7 +748,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             rows: d.len() as u64,
             bytes: summary.bytes,
             blake3: summary.blake3,
-            content_digest: content_digest(&mut d),
+            content_digest: digest::content_digest_of_sorted(&d),
             strata: strata_counts,
             groups: facts.groups.as_ref().map(|_| groups_per_partition[p]),
             time: time_ranges[p].map(|(a, b)| {
