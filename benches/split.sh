@@ -7,13 +7,14 @@
 #
 #   benches/split.sh                 # 1M and 10M rows
 #   benches/split.sh 1000000         # sizes of your choice
-#   REPEAT=5 benches/split.sh        # runs per figure (default 3)
+#   REPEAT=5 benches/split.sh        # rounds per size and format (default 3)
 #
-# Data goes to bench-data/ (not committed). Reports wall seconds (the median
-# of REPEAT runs, with the fastest and slowest beside it: a shared machine's
-# speed drifts from minute to minute), rows per second, peak resident memory
-# (GNU time, the largest of the runs) and the ratio of the medians to the
-# floor's median.
+# Data goes to bench-data/ (not committed). Each round runs every command
+# once, floors included, so that a figure and its floor are measured in the
+# same minutes (a shared machine's speed drifts from minute to minute).
+# Reports wall seconds (the median of the rounds, with the fastest and
+# slowest beside it), rows per second, peak resident memory (GNU time, the
+# largest of the rounds) and the ratio of the median to the floor's median.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 if [ $# -gt 0 ]; then sizes=("$@"); else sizes=(1000000 10000000); fi
@@ -21,50 +22,59 @@ repeat=${REPEAT:-3}
 cargo build --release --quiet --bin cleave --example demo_data --example copy_floor --example read_floor --example hash_floor
 bin=target/release/cleave
 mkdir -p bench-data
-PREP=:
-timed() { # label rows floor_seconds command... (PREP runs before each run)
-  local label=$1 rows=$2 floor=$3; shift 3
-  : > bench-data/times.txt
-  for _ in $(seq "$repeat"); do
-    eval "$PREP"
-    /usr/bin/time -f '%e %M' -o bench-data/time.txt "$@" > /dev/null 2> bench-data/stderr.txt || {
-      # check exits 1 when it finds leaks, which the benchmark plants on purpose
-      [ "$label" != "${label#check}" ] || { cat bench-data/stderr.txt; exit 1; }
-    }
-    tail -n 1 bench-data/time.txt >> bench-data/times.txt
-  done
-  read -r secs lo hi kib < <(sort -n bench-data/times.txt | awk '
+measure() { # key command...: appends "seconds KiB" to bench-data/times-KEY.txt
+  local key=$1; shift
+  /usr/bin/time -f '%e %M' -o bench-data/time.txt "$@" > /dev/null 2> bench-data/stderr.txt || {
+    # check exits 1 when it finds leaks, which the benchmark plants on purpose
+    [ "$key" = check ] || { cat bench-data/stderr.txt; exit 1; }
+  }
+  tail -n 1 bench-data/time.txt >> "bench-data/times-$key.txt"
+}
+median() { # key: "median fastest slowest KiB" of its rounds
+  sort -n "bench-data/times-$1.txt" | awk '
     { s[NR] = $1; if ($2 > k) k = $2 }
-    END { m = (NR % 2 ? s[(NR + 1) / 2] : (s[NR / 2] + s[NR / 2 + 1]) / 2); print m, s[1], s[NR], k }')
+    END { m = (NR % 2 ? s[(NR + 1) / 2] : (s[NR / 2] + s[NR / 2 + 1]) / 2); print m, s[1], s[NR], k }'
+}
+report() { # label key rows floor_key (or -)
+  local label=$1 key=$2 rows=$3 floor=0
+  [ "$4" = - ] || floor=$(median "$4" | cut -d' ' -f1)
+  read -r secs lo hi kib < <(median "$key")
   awk -v l="$label" -v s="$secs" -v lo="$lo" -v hi="$hi" -v k="$kib" -v n="$rows" -v f="$floor" 'BEGIN {
     ratio = (f > 0 ? sprintf("%.2fx", s / f) : "-")
     printf "%-34s %7.2f s (%.2f-%.2f) %11.0f rows/s %7.0f MiB   %s of floor\n", l, s, lo, hi, (s > 0 ? n / s : 0), k / 1024, ratio }'
-  LAST=$secs
-  PREP=:
 }
 # BLAKE3 alone, one row's worth of bytes at a time (the demo rows encode to
 # about 150 bytes): no row digest can cost less, whatever the I/O.
 target/release/examples/hash_floor 2000000 150
+pyarrow=no
+python3 -c 'import pyarrow' 2>/dev/null && pyarrow=yes
 for n in "${sizes[@]}"; do
   for ext in parquet csv; do
     input="bench-data/wq-$n.$ext"
     [ -f "$input" ] || target/release/examples/demo_data --rows "$n" "$input" 2>/dev/null
-    echo "== $n rows, $ext ($(du -hL "$input" | cut -f1))"
-    timed "floor: read + write once" "$n" 0 target/release/examples/copy_floor "$input" "bench-data/copy.$ext"
-    floor=$LAST
-    if [ "$ext" = parquet ] && python3 -c 'import pyarrow' 2>/dev/null; then
-      timed "pyarrow: read + write once" "$n" "$floor" python3 -c \
-        "import pyarrow.parquet as pq, sys; pq.write_table(pq.read_table(sys.argv[1]), sys.argv[2])" \
-        "$input" bench-data/pyarrow-copy.parquet
-    fi
+    echo "== $n rows, $ext ($(du -hL "$input" | cut -f1)), $repeat rounds"
+    rm -f bench-data/times-*.txt
     out="bench-data/out-$n-$ext"
-    PREP="rm -rf '$out'"
-    timed "split (stratified, label, group)" "$n" "$floor" \
-      "$bin" split "$input" --out "$out" --stratify bloom_class --label bloom_class --group station
-    timed "read floor: every partition once" "$n" 0 target/release/examples/read_floor "$out"
-    read_floor=$LAST
-    timed "verify (ratio to the read floor)" "$n" "$read_floor" "$bin" verify "$out"
-    timed "verify --deep (every partition)" "$n" "$read_floor" "$bin" verify "$out" --deep
-    timed "check of the input vs the seal" "$n" "$floor" "$bin" check "$input" --against "$out"
+    for _ in $(seq "$repeat"); do
+      measure copy target/release/examples/copy_floor "$input" "bench-data/copy.$ext"
+      if [ "$ext" = parquet ] && [ "$pyarrow" = yes ]; then
+        measure pyarrow python3 -c \
+          "import pyarrow.parquet as pq, sys; pq.write_table(pq.read_table(sys.argv[1]), sys.argv[2])" \
+          "$input" bench-data/pyarrow-copy.parquet
+      fi
+      rm -rf "$out"
+      measure split "$bin" split "$input" --out "$out" --stratify bloom_class --label bloom_class --group station
+      measure read target/release/examples/read_floor "$out"
+      measure verify "$bin" verify "$out"
+      measure deep "$bin" verify "$out" --deep
+      measure check "$bin" check "$input" --against "$out"
+    done
+    report "floor: read + write once" copy "$n" -
+    [ ! -f bench-data/times-pyarrow.txt ] || report "pyarrow: read + write once" pyarrow "$n" copy
+    report "split (stratified, label, group)" split "$n" copy
+    report "read floor: every partition once" read "$n" -
+    report "verify (ratio to the read floor)" verify "$n" read
+    report "verify --deep (every partition)" deep "$n" read
+    report "check of the input vs the seal" check "$n" copy
   done
 done
