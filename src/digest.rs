@@ -1144,7 +1144,7 @@ mod tests {
         assert_eq!(d, b"2024-02-29");
     }
 
-    /// Every fourth-digit year, against chrono (a general-purpose date and
+    /// Every year of four digits, against chrono (a general-purpose date and
     /// time library) as the reference: 200,000 instants from 0000-01-01 to
     /// 9999-12-31 at an odd stride, so that days, months, leap years and
     /// times of day all vary.

@@ -93,7 +93,7 @@ mod tests {
     }
 
     /// Records sort as the standard library's sort of (digest, row) tuples,
-    /// across threads; equal digests keep their rows in order.
+    /// across threads; equal digests are ordered by row.
     #[test]
     fn records_sort_by_digest_then_row() {
         let mut state = 0x2545_F491_4F6C_DD1Du64;
