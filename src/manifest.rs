@@ -138,6 +138,9 @@ pub struct SplitOptionsRecord {
     pub folds: Option<String>,
     /// Format of the partition files.
     pub output_format: Format,
+    /// `--compression` as given.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub compression: Option<String>,
 }
 
 /// How rows were digested.

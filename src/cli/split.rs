@@ -61,12 +61,19 @@ pub struct Args {
     /// Format of the partition files (default: the input's).
     #[arg(long, value_parser = crate::cli::parse_format)]
     output_format: Option<Format>,
+    /// Codec of Parquet partition files: none, snappy, lz4, gzip[:LEVEL], zstd[:LEVEL], brotli[:LEVEL] (default: the input's codec when it is Parquet, else snappy).
+    #[arg(long, value_name = "CODEC", value_parser = parse_compression)]
+    compression: Option<(parquet::basic::Compression, String)>,
     /// Replace the output folder if it exists.
     #[arg(long)]
     force: bool,
     /// Print one JSON document instead of text.
     #[arg(long)]
     json: bool,
+}
+
+fn parse_compression(s: &str) -> Result<(parquet::basic::Compression, String), String> {
+    crate::io::parse_compression(s).map(|codec| (codec, s.to_ascii_lowercase()))
 }
 
 pub fn run(args: Args) -> anyhow::Result<Outcome> {
@@ -76,6 +83,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         input: args.input.clone(),
         format: args.format,
         output_format: args.output_format,
+        compression: args.compression,
         out: args.out.clone(),
         force: args.force,
         ratios,

@@ -27,7 +27,7 @@ use parquet::arrow::arrow_reader::{ArrowReaderMetadata, ParquetRecordBatchReader
 
 pub use self::csv::{KeptText, RawRows};
 pub use self::pipe::{ReadAhead, WriterThread};
-pub use self::write::{write_small, write_streamed, FileSummary, PartitionWriter};
+pub use self::write::{parse_compression, write_small, write_streamed, FileSummary, PartitionWriter};
 use crate::error::{Error, Result};
 use crate::value;
 

@@ -32,6 +32,37 @@ impl FileSummary {
     }
 }
 
+/// A Parquet codec asked for on the command line: `none`, `snappy`, `lz4`
+/// (the LZ4_RAW codec), `gzip`, `zstd` or `brotli`, the last three with an
+/// optional level after a colon (`zstd:9`).
+///
+/// # Errors
+/// An unknown codec or a level out of the codec's range, said in one line.
+pub fn parse_compression(text: &str) -> std::result::Result<Compression, String> {
+    use parquet::basic::{BrotliLevel, GzipLevel, ZstdLevel};
+    let (name, level) = match text.split_once(':') {
+        Some((name, level)) => {
+            let level = level.parse::<u32>().map_err(|_| format!("compression level `{level}` is not a whole number"))?;
+            (name, Some(level))
+        }
+        None => (text, None),
+    };
+    let bad_level = |e: parquet::errors::ParquetError| format!("{name}: {e}");
+    let codec = match (name.to_ascii_lowercase().as_str(), level) {
+        ("none", None) => Compression::UNCOMPRESSED,
+        ("snappy", None) => Compression::SNAPPY,
+        ("lz4", None) => Compression::LZ4_RAW,
+        ("gzip", l) => Compression::GZIP(l.map_or(Ok(GzipLevel::default()), GzipLevel::try_new).map_err(bad_level)?),
+        ("zstd", l) => {
+            Compression::ZSTD(l.map_or(Ok(ZstdLevel::default()), |l| ZstdLevel::try_new(l as i32)).map_err(bad_level)?)
+        }
+        ("brotli", l) => Compression::BROTLI(l.map_or(Ok(BrotliLevel::default()), BrotliLevel::try_new).map_err(bad_level)?),
+        ("none" | "snappy" | "lz4", Some(_)) => return Err(format!("`{name}` takes no level")),
+        _ => return Err(format!("unknown compression `{text}` (none, snappy, lz4, gzip[:LEVEL], zstd[:LEVEL], brotli[:LEVEL])")),
+    };
+    Ok(codec)
+}
+
 /// A writer that hashes and counts what passes through it.
 struct Hashing<W> {
     inner: W,
@@ -76,7 +107,8 @@ pub struct PartitionWriter {
 impl PartitionWriter {
     /// Creates `path` (which must not exist). With `csv_header`, rows are
     /// given as raw CSV records ([`PartitionWriter::write_raw`]) under that
-    /// header; otherwise as batches of `schema`.
+    /// header; otherwise as batches of `schema`. Parquet files take
+    /// `compression` (Snappy without it).
     ///
     /// # Errors
     /// The file cannot be created or the encoder refuses the schema.
@@ -212,4 +244,24 @@ fn finish_sink(path: &Path, sink: Sink) -> Result<FileSummary> {
         sink.into_inner().map_err(|e| Error::io(path, "cannot write", e.into_error()))?;
     file.sync_all().map_err(|e| Error::io(path, "cannot sync", e))?;
     Ok(FileSummary { bytes, blake3: hasher.finalize().to_hex().to_string() })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use parquet::basic::{GzipLevel, ZstdLevel};
+
+    #[test]
+    fn compression_names_and_levels() {
+        assert_eq!(parse_compression("none"), Ok(Compression::UNCOMPRESSED));
+        assert_eq!(parse_compression("Snappy"), Ok(Compression::SNAPPY));
+        assert_eq!(parse_compression("lz4"), Ok(Compression::LZ4_RAW));
+        assert_eq!(parse_compression("zstd"), Ok(Compression::ZSTD(ZstdLevel::default())));
+        assert_eq!(parse_compression("zstd:9"), Ok(Compression::ZSTD(ZstdLevel::try_new(9).unwrap())));
+        assert_eq!(parse_compression("gzip:1"), Ok(Compression::GZIP(GzipLevel::try_new(1).unwrap())));
+        assert!(parse_compression("zstd:99").unwrap_err().contains("zstd"));
+        assert!(parse_compression("snappy:2").unwrap_err().contains("takes no level"));
+        assert!(parse_compression("lzo").unwrap_err().contains("unknown compression `lzo`"));
+        assert!(parse_compression("gzip:x").unwrap_err().contains("not a whole number"));
+    }
 }

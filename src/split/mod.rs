@@ -100,6 +100,9 @@ pub struct SplitConfig {
     pub format: Option<Format>,
     /// The partitions' format (default: the input's).
     pub output_format: Option<Format>,
+    /// Codec of Parquet partition files and their text as given (default:
+    /// the input's codec when it is Parquet, else Snappy).
+    pub compression: Option<(parquet::basic::Compression, String)>,
     /// The output folder.
     pub out: PathBuf,
     /// Replace an existing output folder.
@@ -413,6 +416,12 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let _lock = OutputLock::take(&cfg.out)?;
     let format = Format::resolve(&cfg.input, cfg.format)?;
     let output_format = cfg.output_format.unwrap_or(format);
+    if cfg.compression.is_some() && output_format != Format::Parquet {
+        return Err(Error::Options(format!(
+            "--compression applies to Parquet partition files; these are {}",
+            output_format.name()
+        )));
+    }
     // CSV: the type-inference pass also keeps the columns pass one needs,
     // so the file is read twice in all, not three times.
     let mut pass_one_columns: Vec<String> = cfg.stratify.iter().chain(&cfg.group).chain(&cfg.order_by).cloned().collect();
@@ -529,10 +538,10 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let fold_schema = with_fold_column(&schema, &cfg.fold_column);
     // Read once for every writer: the CSV header, the input's Parquet codec.
     let csv_header = if raw_csv { Some(table.csv_header()?) } else { None };
-    let compression = if output_format == Format::Parquet && format == Format::Parquet {
-        io::parquet_compression(&cfg.input)
-    } else {
-        None
+    let compression = match &cfg.compression {
+        Some((codec, _)) => Some(*codec),
+        None if output_format == Format::Parquet && format == Format::Parquet => io::parquet_compression(&cfg.input),
+        None => None,
     };
     let mut writers = Vec::new();
     for (i, p) in partitions.iter().enumerate() {
@@ -868,6 +877,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             stable: cfg.stable,
             folds: cfg.folds.as_ref().map(|(_, text)| text.clone()),
             output_format,
+            compression: cfg.compression.as_ref().map(|(_, text)| text.clone()),
         },
         digest: DigestRecord {
             algorithm: digest::ALGORITHM.into(),

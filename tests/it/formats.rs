@@ -95,6 +95,50 @@ fn output_formats_round_trip_to_the_same_digests() {
     assert_eq!(from_jsonl, from_csv);
 }
 
+/// The codecs of the column chunks of a Parquet file, as its footer names
+/// them (the footer keeps no level).
+fn parquet_codecs(path: &std::path::Path) -> Vec<String> {
+    use parquet::file::reader::{FileReader, SerializedFileReader};
+    let reader = SerializedFileReader::new(std::fs::File::open(path).unwrap()).unwrap();
+    let meta = reader.metadata();
+    let mut codecs: Vec<String> =
+        meta.row_groups().iter().flat_map(|g| g.columns().iter().map(|c| codec_name(c.compression()))).collect();
+    codecs.dedup();
+    codecs
+}
+
+fn codec_name(codec: parquet::basic::Compression) -> String {
+    let text = format!("{codec:?}");
+    text.split('(').next().unwrap_or_default().to_string()
+}
+
+/// `--compression` sets the codec of every Parquet partition file (the
+/// hand-off included), changes no digest, and is recorded in the manifest;
+/// without it a Parquet input's codec is kept.
+#[test]
+fn compression_sets_the_parquet_codec_and_keeps_the_digests() {
+    let t = Test::new();
+    t.demo();
+    let csv = identity(&t, "water-quality.csv", "csv", &[]);
+    for (codec, expected) in [("zstd:3", "ZSTD"), ("none", "UNCOMPRESSED"), ("lz4", "LZ4_RAW")] {
+        let out = format!("out-{}", codec.replace(':', "-"));
+        let args = ["--output-format", "parquet", "--compression", codec];
+        assert_eq!(csv, identity(&t, "water-quality.csv", &out, &args), "{codec}");
+        t.ok(&["verify", &out]);
+        for file in ["train.parquet", "validation.parquet", "test.parquet", "test.features.parquet"] {
+            assert_eq!(parquet_codecs(&t.path(&format!("{out}/{file}"))), [expected], "{codec} {file}");
+        }
+        assert_eq!(manifest(&t.path(&out))["options"]["compression"].as_str(), Some(codec));
+    }
+    // A Parquet input keeps its codec unless told otherwise.
+    identity(&t, "out-zstd-3/train.parquet", "kept", &["--ratios", "50,50"]);
+    assert_eq!(parquet_codecs(&t.path("kept/train.parquet")), ["ZSTD"]);
+    assert!(manifest(&t.path("kept"))["options"].get("compression").is_none());
+    // Other output formats have no codec to set.
+    t.run(&["split", "water-quality.csv", "--out", "c", "--compression", "zstd"]).fails_with(&["--compression", "Parquet"]);
+    assert!(!t.path("c").exists());
+}
+
 /// RFC 4180: CRLF record ends (section 2, rule 1), optional quotes around any
 /// field (rule 5), doubled quotes (rule 7); plus a UTF-8 byte-order mark and
 /// LF endings, the extensions cleave documents.

@@ -355,12 +355,18 @@ def check_schema(binary, work):
         ["--group", "station", "--stratify", "bloom_class", "--folds", "3"],
         ["--order-by", "sample_time", "--gap", "2d", "--folds", "4", "--ratios", "80,20"],
         ["--stable", "--group", "station,river", "--folds", "loo", "--ratios", "90,10"],
+        ["--output-format", "parquet", "--compression", "zstd:3", "--label", "bloom_class"],
     ]
     for i, extra in enumerate(runs):
         cleave(binary, "split", "water-quality.csv", "--out", f"o{i}", *extra, cwd=work)
         m = manifest(os.path.join(work, f"o{i}"))
         errors = sorted(validator.iter_errors(m), key=str)
         assert not errors, [e.message for e in errors]
+    # pyarrow reads the codec that --compression asked for off every column chunk.
+    for name in ("train", "test", "test.features"):
+        meta = pq.ParquetFile(os.path.join(work, f"o{len(runs) - 1}", f"{name}.parquet")).metadata
+        codecs = {meta.row_group(g).column(c).compression for g in range(meta.num_row_groups) for c in range(meta.num_columns)}
+        assert codecs == {"ZSTD"}, (name, codecs)
     # Every command's --json document against its schema in schemas/.
     def validate(name, doc):
         with open(os.path.join(ROOT, "schemas", f"{name}.schema.json")) as fh:
