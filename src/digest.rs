@@ -1151,7 +1151,7 @@ mod tests {
     #[test]
     fn timestamps_agree_with_chrono_across_years_0_to_9999() {
         let (first, last) = (-62_167_219_200i64, 253_402_300_799i64);
-        let stride = (last - first) / 200_000 | 1;
+        let stride = ((last - first) / 200_000) | 1;
         let mut secs = first;
         while secs <= last {
             let expected = chrono::DateTime::from_timestamp(secs, 0).expect("in range").format("%Y-%m-%dT%H:%M:%S").to_string();

@@ -153,7 +153,7 @@ impl StrataBuilder {
     pub fn finish(self) -> Strata {
         let bins = self.bins;
         // Per column: code per row, a rank per code (sort order) and a label per code.
-        let mut per_column: Vec<(Vec<u32>, Vec<u32>, Vec<String>, StratumColumn)> = Vec::new();
+        let mut per_column: Vec<ColumnCodes> = Vec::new();
         for col in self.columns {
             match col {
                 Column::Categorical { name, labels, codes, .. } => {
@@ -201,6 +201,14 @@ impl StrataBuilder {
     }
 }
 
+/// One stratify column's codes: a code per row, a rank per code (the sort
+/// order of its labels) and a label per code, with the column's record.
+type ColumnCodes = (Vec<u32>, Vec<u32>, Vec<String>, StratumColumn);
+
+/// The distinct rank tuples in order, each row's tuple number and the rows
+/// per number.
+type NumberedTuples = (Vec<Vec<u32>>, Vec<u32>, Vec<u64>);
+
 fn rank_by_label(labels: &[String]) -> Vec<u32> {
     let mut order: Vec<usize> = (0..labels.len()).collect();
     // Null last; otherwise by label text.
@@ -218,7 +226,7 @@ fn shortest(v: f64) -> String {
     s.strip_suffix(".0").unwrap_or(s).to_string()
 }
 
-fn quantile_bins(name: &str, values: &[Option<f64>], k: usize) -> (Vec<u32>, Vec<u32>, Vec<String>, StratumColumn) {
+fn quantile_bins(name: &str, values: &[Option<f64>], k: usize) -> ColumnCodes {
     let mut sorted: Vec<f64> = values.iter().flatten().copied().filter(|v| !v.is_nan()).collect();
     sorted.sort_by(f64::total_cmp);
     let n = sorted.len();
@@ -258,7 +266,7 @@ fn quantile_bins(name: &str, values: &[Option<f64>], k: usize) -> (Vec<u32>, Vec
     (codes, ranks, labels, StratumColumn { name: name.to_string(), binned: true, levels })
 }
 
-fn combine(per_column: Vec<(Vec<u32>, Vec<u32>, Vec<String>, StratumColumn)>) -> Strata {
+fn combine(per_column: Vec<ColumnCodes>) -> Strata {
     let columns: Vec<StratumColumn> = per_column.iter().map(|c| c.3.clone()).collect();
     let rows = per_column.first().map_or(0, |c| c.0.len());
     // Distinct rank tuples, numbered in sorted (lexicographic) order.
@@ -301,7 +309,7 @@ const DENSE_TUPLES: u64 = 1 << 20;
 /// each column's base one more than its largest rank) orders as the tuples
 /// do, so while the product of the bases is small a table indexed by that
 /// number replaces hashing one tuple per row.
-fn number_tuples(per_column: &[(Vec<u32>, Vec<u32>, Vec<String>, StratumColumn)], rows: usize) -> (Vec<Vec<u32>>, Vec<u32>, Vec<u64>) {
+fn number_tuples(per_column: &[ColumnCodes], rows: usize) -> NumberedTuples {
     let bases: Vec<u64> = per_column.iter().map(|c| c.1.iter().max().map_or(1, |&m| m as u64 + 1)).collect();
     let product = bases.iter().try_fold(1u64, |acc, &b| acc.checked_mul(b)).filter(|&p| p <= DENSE_TUPLES);
     let Some(product) = product else { return number_tuples_by_map(per_column, rows) };
@@ -333,7 +341,7 @@ fn number_tuples(per_column: &[(Vec<u32>, Vec<u32>, Vec<String>, StratumColumn)]
 
 /// [`number_tuples`] for tuples too many for a table: one map entry per
 /// distinct tuple.
-fn number_tuples_by_map(per_column: &[(Vec<u32>, Vec<u32>, Vec<String>, StratumColumn)], rows: usize) -> (Vec<Vec<u32>>, Vec<u32>, Vec<u64>) {
+fn number_tuples_by_map(per_column: &[ColumnCodes], rows: usize) -> NumberedTuples {
     let mut tuple_ids: BTreeMap<Vec<u32>, u32> = BTreeMap::new();
     let mut provisional = Vec::with_capacity(rows);
     let mut index: HashMap<Vec<u32>, u32> = HashMap::new();
@@ -405,7 +413,7 @@ mod tests {
                 state ^= state << 17;
                 (state % n as u64) as u32
             };
-            let per_column: Vec<(Vec<u32>, Vec<u32>, Vec<String>, StratumColumn)> = levels
+            let per_column: Vec<ColumnCodes> = levels
                 .iter()
                 .map(|&l| {
                     // Ranks: a permutation of the codes, as rank_by_label gives.
