@@ -118,13 +118,19 @@ impl std::fmt::Debug for DigestKey {
 
 /// Lowercase hex of bytes.
 pub fn hex(bytes: &[u8]) -> String {
+    let mut text = vec![0u8; bytes.len() * 2];
+    hex_into(bytes, &mut text);
+    String::from_utf8(text).expect("hex digits are ASCII")
+}
+
+/// Lowercase hex of `bytes` into `out`, two ASCII digits a byte (`out` holds
+/// twice as many bytes).
+pub fn hex_into(bytes: &[u8], out: &mut [u8]) {
     const DIGITS: &[u8; 16] = b"0123456789abcdef";
-    let mut s = String::with_capacity(bytes.len() * 2);
-    for b in bytes {
-        s.push(DIGITS[(b >> 4) as usize] as char);
-        s.push(DIGITS[(b & 15) as usize] as char);
+    for (pair, b) in out.chunks_exact_mut(2).zip(bytes) {
+        pair[0] = DIGITS[(b >> 4) as usize];
+        pair[1] = DIGITS[(b & 15) as usize];
     }
-    s
 }
 
 /// The content digest of a set of rows: order-independent, and sensitive to

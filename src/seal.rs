@@ -20,14 +20,6 @@ pub fn sort(records: &mut [SealRecord]) {
     records.par_sort_unstable_by_key(|(digest, row)| (u128::from_be_bytes(*digest), *row));
 }
 
-/// The file bytes of a set of records (sorted here).
-pub fn encode(records: &mut [SealRecord]) -> Vec<u8> {
-    sort(records);
-    let mut out = Vec::with_capacity(records.len() * RECORD_BYTES);
-    write_sorted(records, &mut out).expect("writing to memory cannot fail");
-    out
-}
-
 /// Writes sorted records as the file holds them.
 ///
 /// # Errors
@@ -84,7 +76,9 @@ mod tests {
     #[test]
     fn round_trip_and_refusals() {
         let mut recs = vec![([9u8; 16], 2), ([1u8; 16], 1)];
-        let bytes = encode(&mut recs);
+        sort(&mut recs);
+        let mut bytes = Vec::new();
+        write_sorted(&recs, &mut bytes).unwrap();
         assert_eq!(decode(&bytes).unwrap(), vec![([1u8; 16], 1), ([9u8; 16], 2)]);
         assert!(decode(&bytes[..23]).is_err());
         let mut swapped = bytes[24..].to_vec();

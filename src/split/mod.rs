@@ -75,17 +75,13 @@ impl RowIds {
     /// the same hash as [`RowIds::id`]'s without one call of the hash per
     /// row, and the text is written without an allocation per row.
     pub fn each_id(&self, rows: std::ops::Range<u64>, mut each: impl FnMut(&str)) {
-        const DIGITS: &[u8; 16] = b"0123456789abcdef";
         let numbers: Vec<u8> = rows.flat_map(u64::to_le_bytes).collect();
         let ranges: Vec<std::ops::Range<usize>> = (0..numbers.len() / 8).map(|i| i * 8..i * 8 + 8).collect();
         let mut hashes = Vec::with_capacity(ranges.len());
         crate::lanes::keyed_many(&self.key, &numbers, &ranges, &mut hashes);
         let mut text = [0u8; 16];
         for hash in &hashes {
-            for (pair, byte) in text.chunks_exact_mut(2).zip(&hash[..8]) {
-                pair[0] = DIGITS[(byte >> 4) as usize];
-                pair[1] = DIGITS[(byte & 15) as usize];
-            }
+            digest::hex_into(&hash[..8], &mut text);
             each(std::str::from_utf8(&text).expect("hex digits are ASCII"));
         }
     }

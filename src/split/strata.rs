@@ -314,9 +314,10 @@ fn number_tuples(per_column: &[ColumnCodes], rows: usize) -> NumberedTuples {
     let product = bases.iter().try_fold(1u64, |acc, &b| acc.checked_mul(b)).filter(|&p| p <= DENSE_TUPLES);
     let Some(product) = product else { return number_tuples_by_map(per_column, rows) };
     let key = |row: usize| per_column.iter().zip(&bases).fold(0u64, |acc, (c, &base)| acc * base + c.1[c.0[row] as usize] as u64);
-    let keys: Vec<u32> = (0..rows).map(|row| key(row) as u32).collect();
+    // Each row's key, replaced by its stratum number once the keys are counted.
+    let mut row_stratum: Vec<u32> = (0..rows).map(|row| key(row) as u32).collect();
     let mut sizes_by_key = vec![0u64; product as usize];
-    for &k in &keys {
+    for &k in &row_stratum {
         sizes_by_key[k as usize] += 1;
     }
     let mut id_of = vec![0u32; product as usize];
@@ -335,7 +336,9 @@ fn number_tuples(per_column: &[ColumnCodes], rows: usize) -> NumberedTuples {
             sorted_tuples.push(tuple);
         }
     }
-    let row_stratum = keys.iter().map(|&k| id_of[k as usize]).collect();
+    for k in row_stratum.iter_mut() {
+        *k = id_of[*k as usize];
+    }
     (sorted_tuples, row_stratum, sizes)
 }
 
