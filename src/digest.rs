@@ -159,6 +159,65 @@ pub fn sort_digests(digests: &mut [RowDigest]) {
     digests.par_sort_unstable_by_key(|d| u128::from_be_bytes(*d));
 }
 
+/// Row digests kept in 256 lists by their first byte: the lists end to end,
+/// each sorted, are the digests in byte order. Sorting them is sorting 256
+/// small lists, each within a core's cache, where one long list is sorted
+/// in passes over main memory; and the lists are filled as digests come, at
+/// no cost worth measuring.
+pub struct DigestBuckets {
+    lists: Vec<Vec<RowDigest>>,
+}
+
+impl DigestBuckets {
+    /// Empty lists with room for about `expected` digests in all
+    /// (digests are uniform, so each list gets close to its share).
+    pub fn new(expected: usize) -> Self {
+        let share = expected / 256;
+        // A share's spread is about its square root: four of them, and a
+        // list rarely grows past its first allocation.
+        let room = if expected == 0 { 0 } else { share + 4 * share.isqrt() + 16 };
+        DigestBuckets { lists: (0..256).map(|_| Vec::with_capacity(room)).collect() }
+    }
+
+    /// Adds a digest.
+    #[inline]
+    pub fn push(&mut self, d: RowDigest) {
+        self.lists[d[0] as usize].push(d);
+    }
+
+    /// Digests held.
+    pub fn len(&self) -> usize {
+        self.lists.iter().map(Vec::len).sum()
+    }
+
+    /// True when no digest is held.
+    pub fn is_empty(&self) -> bool {
+        self.lists.iter().all(Vec::is_empty)
+    }
+
+    /// Sorts every list ([`sort_digests`]'s order), across threads.
+    pub fn sort(&mut self) {
+        use rayon::prelude::*;
+        self.lists.par_iter_mut().for_each(|l| l.sort_unstable_by_key(|d| u128::from_be_bytes(*d)));
+    }
+
+    /// The lists by first byte; after [`DigestBuckets::sort`], end to end
+    /// they are in byte order.
+    pub fn lists(&self) -> &[Vec<RowDigest>] {
+        &self.lists
+    }
+
+    /// [`content_digest`] of the digests, once sorted.
+    pub fn content_digest(&self) -> String {
+        debug_assert!(self.lists.iter().all(|l| l.is_sorted()), "content digests are taken over sorted digests");
+        let mut h = blake3::Hasher::new_derive_key(CONTENT_CONTEXT);
+        for list in &self.lists {
+            h.update_rayon(list.as_flattened());
+        }
+        h.finalize().to_hex().to_string()
+    }
+}
+
 fn material(key: Option<&DigestKey>, lists: &[&[String]]) -> Vec<u8> {
     let mut m = Vec::new();
     match key {
@@ -543,6 +602,24 @@ impl GroupSpec {
         let rows: Vec<usize> = (0..batch.num_rows()).collect();
         out.extend(par_chunks(&rows, |chunk, scratch, out| enc.digests(chunk, scratch, out)));
         Ok(())
+    }
+}
+
+impl GroupSpec {
+    /// For a key of one group column given as a dictionary: the group
+    /// digest of each of its `values`, then that of null (one entry more).
+    ///
+    /// # Errors
+    /// Types that cannot be encoded.
+    pub fn dictionary_digests(&self, values: &ArrayRef) -> Result<Vec<RowDigest>> {
+        debug_assert_eq!(self.columns.len(), 1, "a one-column group key");
+        let name = &self.columns[0];
+        let encoders = [Encoder::new(values, name)?];
+        let rows: Vec<usize> = (0..values.len()).collect();
+        let mut out = par_chunks(&rows, |chunk, scratch, out| digest_rows(&encoders, &self.key, chunk, scratch, out));
+        let null = [Encoder::new(&arrow_array::new_null_array(values.data_type(), 1), name)?];
+        digest_rows(&null, &self.key, &[0], &mut Scratch::default(), &mut out);
+        Ok(out)
     }
 }
 
@@ -1347,5 +1424,36 @@ mod tests {
             one_at_a_time.update(d);
         }
         assert_eq!(content_digest(&mut digests), one_at_a_time.finalize().to_hex().to_string());
+    }
+
+    #[test]
+    fn buckets_hold_the_sorted_digests_and_their_content_digest() {
+        // Uneven shares: one bucket crowded, some empty, duplicates.
+        for n in [0u32, 1, 300, 70_000] {
+            let mut digests: Vec<RowDigest> = (0..n)
+                .map(|i| {
+                    let mut d: RowDigest = blake3::hash(&i.to_le_bytes()).as_bytes()[..16].try_into().expect("16 bytes");
+                    if i % 4 == 0 {
+                        d[0] = 200;
+                    }
+                    if i % 9 == 0 {
+                        d[0] &= 0x0F;
+                    }
+                    d
+                })
+                .collect();
+            digests.extend_from_slice(&digests.clone()[..(n as usize / 7)]);
+            let mut buckets = DigestBuckets::new(digests.len() / 3);
+            for d in &digests {
+                buckets.push(*d);
+            }
+            buckets.sort();
+            assert_eq!(buckets.len(), digests.len());
+            assert_eq!(buckets.is_empty(), digests.is_empty());
+            let end_to_end: Vec<RowDigest> = buckets.lists().concat();
+            let expected = buckets.content_digest();
+            assert_eq!(expected, content_digest(&mut digests), "{n} digests");
+            assert_eq!(end_to_end, digests, "{n} digests in byte order");
+        }
     }
 }

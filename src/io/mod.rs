@@ -19,6 +19,7 @@ use std::fs::File;
 use std::io::{BufReader, Read, Seek};
 use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
 
 use arrow_array::{Array, RecordBatch, StringArray};
@@ -347,6 +348,22 @@ impl Table {
     /// # Errors
     /// Unreadable files and unknown columns.
     pub fn batches(&self, projection: Option<&[String]>, keep_raw: bool) -> Result<Batches> {
+        self.batches_keeping_dictionaries(projection, keep_raw, &[])
+    }
+
+    /// As [`Table::batches`]; Parquet text columns named in `dictionaries`
+    /// come as dictionary arrays (`Int32` keys) where the file allows it,
+    /// their values decoded once per dictionary page rather than once per
+    /// row. Other formats and columns come as [`Table::batches`] gives them.
+    ///
+    /// # Errors
+    /// As [`Table::batches`].
+    pub fn batches_keeping_dictionaries(
+        &self,
+        projection: Option<&[String]>,
+        keep_raw: bool,
+        dictionaries: &[String],
+    ) -> Result<Batches> {
         let indices = match projection {
             Some(names) => {
                 let mut idx = names.iter().map(|n| self.column_index(n)).collect::<Result<Vec<_>>>()?;
@@ -367,7 +384,11 @@ impl Table {
             )?)),
             Format::Parquet => guarded(path, format, || {
                 let file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
-                let meta = ArrowReaderMetadata::load(&file, Default::default()).map_err(|e| decode_err(path, format, e))?;
+                let mut meta =
+                    ArrowReaderMetadata::load(&file, Default::default()).map_err(|e| decode_err(path, format, e))?;
+                if let Some(kept) = with_dictionaries(&meta, dictionaries) {
+                    meta = kept;
+                }
                 let row_groups = meta.metadata().num_row_groups();
                 let workers = rayon::current_num_threads().min(row_groups);
                 if workers > 1 {
@@ -631,25 +652,140 @@ pub fn require_supported(path: &Path, field: &Field) -> Result<ColumnType> {
 /// # Errors
 /// Unreadable files.
 pub fn hash_file(path: &Path) -> Result<FileSummary> {
+    hash_reading(path, true, None)
+}
+
+/// Hashes `path` as [`hash_file`] does, across threads when `parallel`;
+/// returns early with an error once `stop` is set.
+fn hash_reading(path: &Path, parallel: bool, stop: Option<&AtomicBool>) -> Result<FileSummary> {
     let mut file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
     let mut hasher = blake3::Hasher::new();
     // Large reads, hashed across threads (BLAKE3 is a tree: the same hash).
-    let mut buf = vec![0u8; 8 << 20];
+    let mut buf = vec![0u8; if parallel { 8 << 20 } else { 1 << 20 }];
     let mut bytes = 0u64;
     loop {
+        if stop.is_some_and(|s| s.load(Ordering::Relaxed)) {
+            return Err(Error::malformed(path, "hashing stopped before the end"));
+        }
         let n = match file.read(&mut buf) {
             Ok(0) => break,
             Ok(n) => n,
             Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
             Err(e) => return Err(Error::io(path, "cannot read", e)),
         };
-        hasher.update_rayon(&buf[..n]);
+        if parallel {
+            hasher.update_rayon(&buf[..n]);
+        } else {
+            hasher.update(&buf[..n]);
+        }
         bytes += n as u64;
     }
     Ok(FileSummary { bytes, blake3: hasher.finalize().to_hex().to_string() })
 }
 
+/// A file hashed ([`hash_file`]) on a thread of its own while other work
+/// goes on, on one core: the hash of a large input costs no wall time while
+/// that work leaves a core idle. Dropped before [`HashingThread::join`], the
+/// thread stops at its next read and is waited for.
+pub struct HashingThread {
+    stop: Arc<AtomicBool>,
+    handle: Option<std::thread::JoinHandle<Result<FileSummary>>>,
+}
+
+impl HashingThread {
+    /// Starts hashing `path`.
+    pub fn start(path: &Path) -> HashingThread {
+        let stop = Arc::new(AtomicBool::new(false));
+        let (path, flag) = (path.to_path_buf(), stop.clone());
+        let handle = std::thread::spawn(move || hash_reading(&path, false, Some(&flag)));
+        HashingThread { stop, handle: Some(handle) }
+    }
+
+    /// The file's size and hash.
+    ///
+    /// # Errors
+    /// As [`hash_file`].
+    pub fn join(mut self) -> Result<FileSummary> {
+        let handle = self.handle.take().expect("joined once");
+        match handle.join() {
+            Ok(result) => result,
+            Err(panic) => std::panic::resume_unwind(panic),
+        }
+    }
+}
+
+impl Drop for HashingThread {
+    fn drop(&mut self) {
+        self.stop.store(true, Ordering::Relaxed);
+        if let Some(h) = self.handle.take() {
+            let _ = h.join();
+        }
+    }
+}
+
+/// `meta` with the text columns named in `names` read as dictionary arrays
+/// where every data page of the column is dictionary-encoded, or `None`
+/// when no column qualifies or the reader refuses the schema (the columns
+/// are then read as they are). A column whose pages fall back to plain
+/// encoding would be given a dictionary built anew for each batch, which
+/// costs more than it saves.
+fn with_dictionaries(meta: &ArrowReaderMetadata, names: &[String]) -> Option<ArrowReaderMetadata> {
+    use parquet::basic::Encoding;
+    let all_dictionary = |name: &str| {
+        meta.metadata().row_groups().iter().all(|rg| {
+            rg.columns().iter().filter(|c| c.column_path().parts() == [name]).all(|c| {
+                c.dictionary_page_offset().is_some()
+                    && c.page_encoding_stats_mask().is_some_and(|mask| {
+                        mask.is_only(Encoding::PLAIN_DICTIONARY) || mask.is_only(Encoding::RLE_DICTIONARY)
+                    })
+            })
+        })
+    };
+    let schema = meta.schema();
+    let mut changed = false;
+    let fields: Vec<Field> = schema
+        .fields()
+        .iter()
+        .map(|f| match f.data_type() {
+            DataType::Utf8 | DataType::Binary if names.iter().any(|n| n == f.name()) && all_dictionary(f.name()) => {
+                changed = true;
+                let dictionary = DataType::Dictionary(Box::new(DataType::Int32), Box::new(f.data_type().clone()));
+                f.as_ref().clone().with_data_type(dictionary)
+            }
+            _ => f.as_ref().clone(),
+        })
+        .collect();
+    if !changed {
+        return None;
+    }
+    let hint = Arc::new(Schema::new_with_metadata(fields, schema.metadata().clone()));
+    let options = parquet::arrow::arrow_reader::ArrowReaderOptions::new().with_schema(hint);
+    ArrowReaderMetadata::try_new(meta.metadata().clone(), options).ok()
+}
+
 /// Whether an array is entirely null (or empty).
 pub fn all_null(array: &dyn Array) -> bool {
-    array.null_count() == array.len()
+    array.logical_null_count() == array.len()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn hashing_on_a_thread_gives_the_file_hash() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("input.bin");
+        // Several reads of the thread's buffer, the last one short.
+        let bytes: Vec<u8> = (0..(5u32 << 20) + 123).map(|i| (i.wrapping_mul(2_654_435_761) >> 24) as u8).collect();
+        std::fs::write(&path, &bytes).unwrap();
+        let summary = HashingThread::start(&path).join().unwrap();
+        assert_eq!(summary.bytes, bytes.len() as u64);
+        assert_eq!(summary.blake3, blake3::hash(&bytes).to_hex().to_string());
+        assert_eq!(hash_file(&path).unwrap().blake3, summary.blake3);
+        // Dropped unjoined, it stops and is waited for.
+        drop(HashingThread::start(&path));
+        let missing = HashingThread::start(&dir.path().join("missing.bin")).join().unwrap_err();
+        assert!(missing.to_string().contains("missing.bin"), "{missing}");
+    }
 }

@@ -190,6 +190,13 @@ impl WriterThread {
         self.send(Chunk::Raw(bytes))
     }
 
+    /// Sends no more chunks: the thread writes what is queued, then finishes
+    /// and syncs the file while the caller goes on; [`WriterThread::finish`]
+    /// then waits for it.
+    pub fn close(&mut self) {
+        self.tx = None;
+    }
+
     /// Waits for every queued chunk, finishes the file and returns its summary.
     ///
     /// # Errors

@@ -13,6 +13,7 @@
 //! the complete new one.
 
 mod folds;
+mod memo;
 mod ratio;
 mod rng;
 mod strata;
@@ -22,6 +23,8 @@ use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
+use arrow_array::cast::AsArray;
+use arrow_array::types::Int32Type;
 use arrow_array::{ArrayRef, Int64Array, RecordBatch, UInt32Array};
 use arrow_schema::{DataType, Field, Schema, SchemaRef};
 
@@ -30,7 +33,7 @@ pub use self::ratio::{Partition, Ratios};
 pub use self::rng::SplitRng;
 pub use self::strata::{Strata, StrataBuilder, StratumColumn};
 pub use self::structure::{format_time, parse_gap, time_values, Groups, TimeKind};
-use crate::digest::{self, DigestSpec, GroupSpec, RowDigest, RowDigests};
+use crate::digest::{self, DigestBuckets, DigestSpec, GroupSpec, RowDigest, RowDigests};
 use crate::error::{Error, Result};
 use crate::io::{self, ColumnType, Format, PartitionWriter, Table, TypeHints};
 use crate::manifest::{
@@ -38,6 +41,7 @@ use crate::manifest::{
     SealFile, SealKind, SealRecord, ShortStratum, Source, SplitOptionsRecord, StrataRecord, TimeRange, Tool,
 };
 use crate::seal;
+use crate::split::memo::DictionaryMemo;
 
 /// The partition code of a row left out (by the gap or the group rule).
 pub const DROPPED: u8 = u8::MAX;
@@ -297,9 +301,21 @@ fn first_pass(
     let mut times: Option<(Vec<i64>, Option<TimeKind>)> = cfg.order_by.as_ref().map(|_| (Vec::new(), None));
     let mut stable_keys = stable_rows.then(Vec::new);
     // The rows come from the kept CSV text or from a reading pass.
+    // Text columns of strata and of a one-column group key come as
+    // dictionaries where the file has them: their values are encoded and
+    // digested once per dictionary, not once per row.
+    let mut dictionaries: Vec<String> = Vec::new();
+    if !stable_rows {
+        dictionaries.extend(stratify.iter().filter(|(_, t)| !t.is_numeric()).map(|(n, _)| n.clone()));
+        if let [column] = group {
+            dictionaries.push(column.clone());
+        }
+        dictionaries.retain(|n| cfg.order_by.as_ref() != Some(n));
+    }
+    let mut group_memo = DictionaryMemo::new();
     let mut batches = match &kept {
         Some(_) => None,
-        None => Some(table.batches(Some(&needed), false)?.read_ahead()),
+        None => Some(table.batches_keeping_dictionaries(Some(&needed), false, &dictionaries)?.read_ahead()),
     };
     let mut kept_at = 0usize;
     let mut next_batch = || -> Result<Option<io::Batch>> {
@@ -314,24 +330,49 @@ fn first_pass(
             (None, _) => Ok(None),
         }
     };
-    let mut digests = Vec::new();
+    // A batch's group digests are taken (across threads) while those of the
+    // batch before are numbered and its strata collected (on one thread):
+    // numbering keeps row order, and no step waits for the other's end.
+    let mut pending: Vec<RowDigest> = Vec::new();
+    let mut fresh: Vec<RowDigest> = Vec::new();
     let mut rows = 0u64;
     while let Some(batch) = next_batch()? {
         rows += batch.data.num_rows() as u64;
-        // Strata and groups side by side.
-        let strata_part = || -> Result<()> {
+        let dictionary = match group {
+            [column] if group_spec.is_some() => batch
+                .data
+                .column_by_name(column)
+                .and_then(|c| c.as_dictionary_opt::<Int32Type>())
+                .filter(|d| d.values().null_count() == 0),
+            _ => None,
+        };
+        let in_order = || -> Result<()> {
             if let Some(b) = strata_builder.as_mut() {
                 let arrays: Vec<ArrayRef> =
                     stratify.iter().map(|(s, _)| batch.data.column_by_name(s).expect("projected").clone()).collect();
                 b.push(&arrays)?;
             }
+            if let (Some(spec), Some(groups)) = (&group_spec, groups.as_mut()) {
+                groups.push(&pending);
+                pending.clear();
+                if let Some(d) = dictionary {
+                    if !group_memo.refresh(d.values(), ([0; 16], u32::MAX)) {
+                        let values = spec.dictionary_digests(d.values())?;
+                        for (slot, digest) in group_memo.slots.iter_mut().zip(values) {
+                            slot.0 = digest;
+                        }
+                    }
+                    groups.push_keys(d.keys(), &mut group_memo);
+                }
+            }
             Ok(())
         };
-        let groups_part = || -> Result<()> {
-            if let (Some(spec), Some(groups)) = (&group_spec, groups.as_mut()) {
-                digests.clear();
-                spec.digests(&cfg.input, &batch.data, &mut digests)?;
-                groups.push(&digests);
+        let digested = || -> Result<()> {
+            if let Some(spec) = &group_spec {
+                fresh.clear();
+                if dictionary.is_none() {
+                    spec.digests(&cfg.input, &batch.data, &mut fresh)?;
+                }
                 for (seen, name) in group_seen.iter_mut().zip(group) {
                     let col = batch.data.column_by_name(name).expect("projected");
                     *seen |= !io::all_null(col.as_ref());
@@ -339,15 +380,19 @@ fn first_pass(
             }
             Ok(())
         };
-        let (a, b) = rayon::join(strata_part, groups_part);
+        let (a, b) = rayon::join(in_order, digested);
         a?;
         b?;
+        std::mem::swap(&mut pending, &mut fresh);
         if let (Some(column), Some((values, kind))) = (&cfg.order_by, times.as_mut()) {
             *kind = Some(time_values(&cfg.input, &batch, column, values)?);
         }
         if let Some(keys) = stable_keys.as_mut() {
             spec.bind(&cfg.input, &batch.data.schema())?.row_digests(&batch.data, keys)?;
         }
+    }
+    if let Some(groups) = groups.as_mut() {
+        groups.push(&pending);
     }
     if rows == 0 {
         return Err(Error::malformed(&cfg.input, "has a header but no data rows"));
@@ -418,6 +463,9 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             output_format.name()
         )));
     }
+    // The input's own hash, for the manifest, taken while the passes below
+    // leave a core idle.
+    let source_hash = io::HashingThread::start(&cfg.input);
     // CSV: the type-inference pass also keeps the columns pass one needs,
     // so the file is read twice in all, not three times.
     let mut pass_one_columns: Vec<String> = cfg.stratify.iter().chain(&cfg.group).chain(&cfg.order_by).cloned().collect();
@@ -573,7 +621,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         let w = PartitionWriter::create(&staging.path.join(&file), output_format, &hschema, None, compression)?;
         handoff = Some((file, w.spawn(), keep, hschema, 0u64));
     }
-    let mut digests: Vec<Vec<RowDigest>> = totals.iter().map(|&t| Vec::with_capacity(t as usize)).collect();
+    let mut digests: Vec<DigestBuckets> = totals.iter().map(|&t| DigestBuckets::new(t as usize)).collect();
     let mut test_seal: Vec<(RowDigests, u64)> = Vec::with_capacity(totals[test_index] as usize);
     let mut test_groups: digest::DigestMap<u64> = digest::DigestMap::default();
     let mut fold_counts: Vec<BTreeMap<u32, u64>> = vec![BTreeMap::new(); k];
@@ -619,7 +667,9 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         );
         tested?;
         others?;
-        digests[test_index].extend(test_digests.iter().map(|d| d.row));
+        for d in &test_digests {
+            digests[test_index].push(d.row);
+        }
         for (&i, d) in other_rows.iter().zip(&batch_digests) {
             digests[assigned[i] as usize].push(*d);
         }
@@ -701,14 +751,21 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
         ));
     }
 
-    // The seal files are sorted, written and synced on a thread of their own
-    // while the partitions' digests are sorted and their files finished.
+    // Every file is finished and synced on its own thread while the
+    // partitions' digests are sorted; the seal files are sorted, written
+    // and synced on a thread of their own meanwhile.
+    for (_, w) in writers.iter_mut() {
+        w.close();
+    }
+    if let Some((_, w, ..)) = handoff.as_mut() {
+        w.close();
+    }
     let seal_thread = {
         let dir = staging.path.clone();
         let groups = facts.groups.as_ref().map(|_| test_groups.into_iter().collect::<Vec<seal::SealRecord>>());
         SealThread(Some(std::thread::spawn(move || write_seal(&dir, &test_seal, groups.as_deref()))))
     };
-    let source_summary = io::hash_file(&cfg.input)?;
+    let source_summary = source_hash.join()?;
     let time_kind = facts.times.as_ref().map(|(_, kind)| *kind);
     let mut groups_per_partition = vec![0u64; k];
     if let Some(groups) = &facts.groups {
@@ -728,9 +785,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let mut records = Vec::new();
     // Identical rows in two partitions: a later check of the train file
     // would flag them, and they are a leak from the start.
-    for d in digests.iter_mut() {
-        digest::sort_digests(d);
-    }
+    digests.iter_mut().for_each(DigestBuckets::sort);
     let shared = rows_shared_with_test(&digests);
     if shared > 0 {
         warnings.push(format!(
@@ -753,7 +808,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             rows: d.len() as u64,
             bytes: summary.bytes,
             blake3: summary.blake3,
-            content_digest: digest::content_digest_of_sorted(&d),
+            content_digest: d.content_digest(),
             strata: strata_counts,
             groups: facts.groups.as_ref().map(|_| groups_per_partition[p]),
             time: time_ranges[p].map(|(a, b)| {
@@ -932,22 +987,27 @@ impl Drop for SealThread {
 
 /// Test rows whose row digest also occurs in another partition (each
 /// partition's digests sorted).
-fn rows_shared_with_test(digests: &[Vec<RowDigest>]) -> u64 {
-    // Every list is sorted: one merge walk per other partition.
+fn rows_shared_with_test(digests: &[DigestBuckets]) -> u64 {
+    // Equal digests share a first byte, so lists are compared list by list;
+    // every list is sorted: one merge walk per other partition.
     let (test, others) = digests.split_last().expect("at least two partitions");
-    let mut shared = vec![false; test.len()];
-    for other in others {
-        let mut j = 0;
-        for (i, d) in test.iter().enumerate() {
-            while j < other.len() && other[j] < *d {
-                j += 1;
-            }
-            if j < other.len() && other[j] == *d {
-                shared[i] = true;
+    let mut count = 0;
+    for (b, test) in test.lists().iter().enumerate() {
+        let mut shared = vec![false; test.len()];
+        for other in others.iter().map(|o| &o.lists()[b]) {
+            let mut j = 0;
+            for (i, d) in test.iter().enumerate() {
+                while j < other.len() && other[j] < *d {
+                    j += 1;
+                }
+                if j < other.len() && other[j] == *d {
+                    shared[i] = true;
+                }
             }
         }
+        count += shared.iter().filter(|&&s| s).count() as u64;
     }
-    shared.iter().filter(|&&s| s).count() as u64
+    count
 }
 
 /// Writes the seal files of the test partition: rows, features and loose

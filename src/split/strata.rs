@@ -16,16 +16,25 @@ use std::collections::BTreeMap;
 use foldhash::{HashMap, HashMapExt, HashSet, HashSetExt};
 
 use arrow_array::cast::AsArray;
-use arrow_array::types::Float64Type;
-use arrow_array::{Array, ArrayRef};
+use arrow_array::types::{Float64Type, Int32Type};
+use arrow_array::{new_null_array, Array, ArrayRef};
 use arrow_schema::DataType;
 
 use crate::digest::ValueEncoder;
 use crate::error::{Error, Result};
 use crate::io::ColumnType;
+use crate::split::memo::DictionaryMemo;
 
 enum Column {
-    Categorical { name: String, ids: HashMap<Vec<u8>, u32>, labels: Vec<String>, codes: Vec<u32> },
+    Categorical {
+        name: String,
+        ids: HashMap<Vec<u8>, u32>,
+        labels: Vec<String>,
+        codes: Vec<u32>,
+        /// The code of each value of the batches' dictionary (`u32::MAX`
+        /// until met), when the column comes as one.
+        memo: DictionaryMemo<u32>,
+    },
     Numeric { name: String, values: Vec<Option<f64>>, distinct: HashSet<u64>, keys: HashMap<Vec<u8>, (u32, String)>, codes: Vec<u32> },
 }
 
@@ -92,7 +101,13 @@ impl StrataBuilder {
                         codes: Vec::new(),
                     }
                 } else {
-                    Column::Categorical { name: name.clone(), ids: HashMap::new(), labels: Vec::new(), codes: Vec::new() }
+                    Column::Categorical {
+                        name: name.clone(),
+                        ids: HashMap::new(),
+                        labels: Vec::new(),
+                        codes: Vec::new(),
+                        memo: DictionaryMemo::new(),
+                    }
                 }
             })
             .collect();
@@ -107,7 +122,33 @@ impl StrataBuilder {
         let bins = self.bins;
         for (col, array) in self.columns.iter_mut().zip(arrays) {
             match col {
-                Column::Categorical { name, ids, labels, codes } => {
+                Column::Categorical { name, ids, labels, codes, memo } => {
+                    if let Some(dict) = array.as_dictionary_opt::<Int32Type>().filter(|d| d.values().null_count() == 0) {
+                        // Each distinct value is encoded and looked up once.
+                        let values = dict.values();
+                        memo.refresh(values, u32::MAX);
+                        let encoder = ValueEncoder::new(values, name)?;
+                        let keys = dict.keys();
+                        let null = memo.null_slot();
+                        let mut key = Vec::with_capacity(32);
+                        for (row, &k) in keys.values().iter().enumerate() {
+                            let slot = if keys.is_valid(row) { k as usize } else { null };
+                            if memo.slots[slot] == u32::MAX {
+                                key.clear();
+                                if slot == null {
+                                    ValueEncoder::new(&new_null_array(values.data_type(), 1), name)?.write(0, &mut key);
+                                } else {
+                                    encoder.write(slot, &mut key);
+                                }
+                                memo.slots[slot] = intern(ids, &key, |&id| id, |id| {
+                                    labels.push(display(array, row));
+                                    id
+                                });
+                            }
+                            codes.push(memo.slots[slot]);
+                        }
+                        continue;
+                    }
                     let encoder = ValueEncoder::new(array, name)?;
                     let mut key = Vec::with_capacity(32);
                     for row in 0..array.len() {
@@ -398,6 +439,54 @@ mod tests {
         assert_eq!(s.labels, ["class=a", "class=b", "class=<null>"]);
         assert_eq!(s.row_stratum, [1, 2, 0, 1]);
         assert_eq!(s.sizes, [1, 2, 1]);
+    }
+
+    /// The rows of `values` (indices into `dictionary`, `None` for null) as
+    /// batches of dictionary arrays: the first two share one values array,
+    /// as a Parquet column chunk's batches do, the last has its own.
+    fn dictionary_batches(dictionary: &[&str], rows: &[Option<i32>]) -> Vec<ArrayRef> {
+        use arrow_array::{DictionaryArray, Int32Array};
+        let shared: ArrayRef = Arc::new(StringArray::from(dictionary.to_vec()));
+        let mut reversed = dictionary.to_vec();
+        reversed.reverse();
+        let other: ArrayRef = Arc::new(StringArray::from(reversed));
+        let n = dictionary.len() as i32;
+        let third = rows.len() / 3;
+        let cut = [&rows[..third], &rows[third..2 * third], &rows[2 * third..]];
+        cut.iter()
+            .enumerate()
+            .map(|(i, part)| {
+                let (values, keys): (&ArrayRef, Vec<Option<i32>>) = if i < 2 {
+                    (&shared, part.to_vec())
+                } else {
+                    (&other, part.iter().map(|k| k.map(|k| n - 1 - k)).collect())
+                };
+                Arc::new(DictionaryArray::new(Int32Array::from(keys), values.clone())) as ArrayRef
+            })
+            .collect()
+    }
+
+    #[test]
+    fn dictionary_batches_give_the_strata_of_plain_ones() {
+        let dictionary = ["none", "low", "moderate", "high", "unused"];
+        let rows: Vec<Option<i32>> =
+            (0..300).map(|i: i32| if i % 11 == 4 { None } else { Some((i * 7 + i / 13) % 4) }).collect();
+        let mut plain = StrataBuilder::new(&[("bloom_class".into(), ColumnType::String)], 5);
+        let mut dict = StrataBuilder::new(&[("bloom_class".into(), ColumnType::String)], 5);
+        let batches = dictionary_batches(&dictionary, &rows);
+        let mut at = 0;
+        for b in &batches {
+            let text: Vec<Option<&str>> = rows[at..at + b.len()].iter().map(|k| k.map(|k| dictionary[k as usize])).collect();
+            at += b.len();
+            plain.push(&[Arc::new(StringArray::from(text)) as ArrayRef]).unwrap();
+            dict.push(std::slice::from_ref(b)).unwrap();
+        }
+        let (p, d) = (plain.finish(), dict.finish());
+        assert_eq!(d.labels, p.labels);
+        assert_eq!(d.row_stratum, p.row_stratum);
+        assert_eq!(d.sizes, p.sizes);
+        assert!(d.labels.contains(&"bloom_class=<null>".to_string()));
+        assert_eq!(d.labels.len(), 5, "four classes and null; an unused dictionary value is no stratum");
     }
 
     proptest::proptest! {

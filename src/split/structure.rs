@@ -27,13 +27,14 @@ use arrow_array::types::{
     Date32Type, Int64Type, TimestampMicrosecondType, TimestampMillisecondType, TimestampNanosecondType,
     TimestampSecondType,
 };
-use arrow_array::{Array, ArrayRef};
+use arrow_array::{Array, ArrayRef, Int32Array};
 use arrow_schema::{DataType, TimeUnit};
 use std::path::Path;
 
 use crate::digest::{DigestMap, RowDigest};
 use crate::error::{Error, Result};
 use crate::io::Batch;
+use crate::split::memo::DictionaryMemo;
 use crate::split::rng::SplitRng;
 use crate::split::{Ratios, Strata, DROPPED};
 use crate::value;
@@ -197,15 +198,40 @@ impl Groups {
     /// Adds rows by their group digests.
     pub fn push(&mut self, digests: &[RowDigest]) {
         for d in digests {
-            let next = self.digests.len() as u32;
-            let id = *self.index.entry(*d).or_insert_with(|| {
-                self.digests.push(*d);
-                self.sizes.push(0);
-                next
-            });
+            let id = self.id_of(d);
             self.sizes[id as usize] += 1;
             self.row_group.push(id);
         }
+    }
+
+    /// Adds rows of a one-column group key given as dictionary keys: a
+    /// row's group digest is `memo`'s value for its key's slot (the last
+    /// slot for a null key). Groups are numbered as [`Groups::push`] numbers
+    /// them for the same digests; `memo`'s group ids per slot
+    /// (`u32::MAX` until met) spare the lookup for every row after a
+    /// value's first.
+    pub fn push_keys(&mut self, keys: &Int32Array, memo: &mut DictionaryMemo<(RowDigest, u32)>) {
+        let null = memo.null_slot();
+        for (row, &key) in keys.values().iter().enumerate() {
+            let slot = if keys.is_valid(row) { key as usize } else { null };
+            let (digest, known) = &mut memo.slots[slot];
+            if *known == u32::MAX {
+                *known = self.id_of(digest);
+            }
+            let id = *known;
+            self.sizes[id as usize] += 1;
+            self.row_group.push(id);
+        }
+    }
+
+    /// The id of the group with digest `d`, numbered on first sight.
+    fn id_of(&mut self, d: &RowDigest) -> u32 {
+        let next = self.digests.len() as u32;
+        *self.index.entry(*d).or_insert_with(|| {
+            self.digests.push(*d);
+            self.sizes.push(0);
+            next
+        })
     }
 
     /// Number of groups.
@@ -436,6 +462,7 @@ pub fn assign_time(times: &[i64], groups: Option<&Groups>, ratios: &Ratios, gap:
 mod tests {
     use super::*;
     use std::collections::HashMap;
+    use std::sync::Arc;
 
     #[test]
     fn gap_units() {
@@ -456,6 +483,39 @@ mod tests {
     }
 
     use proptest::prelude::*;
+
+    proptest! {
+        /// Rows given as dictionary keys are numbered as their digests
+        /// given one by one would be, nulls and values repeated in the
+        /// dictionary included.
+        #[test]
+        fn dictionary_keys_number_groups_as_digests_do(
+            dictionary in proptest::collection::vec(0u8..6, 1..8),
+            keys in proptest::collection::vec(proptest::option::weighted(0.9, 0usize..8), 0..200),
+        ) {
+            let null = [0xEE; 16];
+            let digest_of = |k: Option<usize>| k.map_or(null, |k| [dictionary[k % dictionary.len()]; 16]);
+            let mut plain = Groups::new();
+            plain.push(&keys.iter().map(|&k| digest_of(k)).collect::<Vec<_>>());
+            let mut memo = DictionaryMemo::new();
+            let values: ArrayRef = Arc::new(arrow_array::UInt8Array::from(dictionary.clone()));
+            memo.refresh(&values, ([0; 16], u32::MAX));
+            for (slot, &v) in memo.slots.iter_mut().zip(&dictionary) {
+                slot.0 = [v; 16];
+            }
+            let last = memo.null_slot();
+            memo.slots[last].0 = null;
+            let keys: Int32Array = keys.iter().map(|k| k.map(|k| (k % dictionary.len()) as i32)).collect();
+            let mut dict = Groups::new();
+            // In two batches sharing the dictionary.
+            let half = keys.len() / 2;
+            dict.push_keys(&keys.slice(0, half), &mut memo);
+            dict.push_keys(&keys.slice(half, keys.len() - half), &mut memo);
+            prop_assert_eq!(&dict.row_group, &plain.row_group);
+            prop_assert_eq!(&dict.sizes, &plain.sizes);
+            prop_assert_eq!(&dict.digests, &plain.digests);
+        }
+    }
 
     fn groups_of(ids: &[u8]) -> Groups {
         let mut g = Groups::new();

@@ -262,3 +262,86 @@ fn many_row_groups_read_in_parallel_keep_the_file_order_whatever_the_thread_coun
     }
     assert!(seen[0] == seen[1], "outputs differ between 1 and 4 threads");
 }
+
+/// The demo table with nulls among its stations and bloom classes, in row
+/// groups of 250 rows, written as Parquet with `props` (or as Arrow IPC
+/// without them).
+fn write_with_nulls(t: &Test, name: &str, props: Option<parquet::file::properties::WriterProperties>) {
+    use arrow_array::{Array, BooleanArray, RecordBatch};
+    let file = std::fs::File::open(fixture("water-quality.csv")).unwrap();
+    let reader = arrow_csv::ReaderBuilder::new(demo_schema()).with_header(true).with_batch_size(250).build(file).unwrap();
+    let mut at = 0usize;
+    let batches: Vec<RecordBatch> = reader
+        .map(|b| {
+            let b = b.unwrap();
+            let mut columns = b.columns().to_vec();
+            for (column, every, offset) in [(0usize, 17usize, 3usize), (3, 23, 5)] {
+                let mask: BooleanArray = (0..b.num_rows()).map(|i| Some((at + i) % every == offset)).collect();
+                columns[column] = arrow_select::nullif::nullif(columns[column].as_ref(), &mask).unwrap();
+            }
+            at += b.num_rows();
+            RecordBatch::try_new(b.schema(), columns).unwrap()
+        })
+        .collect();
+    assert!(batches[0].column(0).null_count() > 0 && batches[0].column(3).null_count() > 0);
+    let out = std::fs::File::create(t.path(name)).unwrap();
+    match props {
+        Some(props) => {
+            let mut w = parquet::arrow::ArrowWriter::try_new(out, demo_schema(), Some(props)).unwrap();
+            for b in &batches {
+                w.write(b).unwrap();
+            }
+            w.close().unwrap();
+        }
+        None => {
+            let mut w = arrow_ipc::writer::FileWriter::try_new(out, &demo_schema()).unwrap();
+            for b in &batches {
+                w.write(b).unwrap();
+            }
+            w.finish().unwrap();
+        }
+    }
+}
+
+/// The data types in which a split's first pass is given `columns` of a file.
+fn pass_one_types(path: &std::path::Path, columns: &[&str]) -> Vec<String> {
+    use cleave::io::{Format, Table, TypeHints};
+    let table = Table::open(path, Format::Parquet, &TypeHints::new()).unwrap();
+    let names: Vec<String> = columns.iter().map(|c| c.to_string()).collect();
+    let mut batches = table.batches_keeping_dictionaries(Some(&names), false, &names).unwrap();
+    let batch = batches.next_batch().unwrap().unwrap().data;
+    columns.iter().map(|c| batch.column_by_name(c).unwrap().data_type().to_string()).collect()
+}
+
+#[test]
+fn group_and_strata_columns_read_as_dictionaries_split_as_plain_ones() {
+    use parquet::file::properties::WriterProperties;
+    let t = Test::new();
+    let small = || WriterProperties::builder().set_max_row_group_row_count(Some(250));
+    // Every page dictionary-encoded: read as dictionaries, one per row group.
+    write_with_nulls(&t, "dictionary.parquet", Some(small().build()));
+    // Stations plain-encoded; and dictionaries that overflow into plain
+    // pages within a row group: read as plain text.
+    write_with_nulls(&t, "plain.parquet", Some(small().set_column_dictionary_enabled("station".into(), false).build()));
+    write_with_nulls(&t, "fallback.parquet", Some(small().set_dictionary_page_size_limit(16).build()));
+    write_with_nulls(&t, "plain.arrow", None);
+    let columns = ["station", "bloom_class"];
+    assert_eq!(pass_one_types(&t.path("dictionary.parquet"), &columns), ["Dictionary(Int32, Utf8)"; 2]);
+    assert_eq!(pass_one_types(&t.path("plain.parquet"), &columns), ["Utf8", "Dictionary(Int32, Utf8)"]);
+    assert_eq!(pass_one_types(&t.path("fallback.parquet"), &columns), ["Utf8"; 2]);
+
+    let split = |input: &str, out: &str| {
+        let mut v = identity(&t, input, out, &["--group", "station"]);
+        v.push(blake3::hash(&std::fs::read(t.path(&format!("{out}/seal.groups.bin"))).unwrap()).to_hex().to_string());
+        let m = manifest(&t.path(out));
+        for p in m["partitions"].as_sequence().unwrap() {
+            v.push(format!("{:?} {:?}", p["strata"], p["groups"]));
+        }
+        v
+    };
+    let expected = split("plain.arrow", "a");
+    assert!(expected.iter().any(|l| l.contains("<null>")), "a null stratum: {expected:?}");
+    assert_eq!(split("dictionary.parquet", "b"), expected, "dictionaries");
+    assert_eq!(split("plain.parquet", "c"), expected, "plain stations");
+    assert_eq!(split("fallback.parquet", "d"), expected, "dictionaries falling back to plain pages");
+}
