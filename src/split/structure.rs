@@ -251,8 +251,46 @@ impl Default for Groups {
     }
 }
 
-/// Rows per stratum of each group, sparse: (stratum, rows) pairs.
+/// Groups times strata up to which [`group_strata`] counts in one table.
+const DENSE_GROUP_STRATA: usize = 1 << 22;
+
+/// Rows per stratum of each group, sparse: (stratum, rows) pairs, in the
+/// order the group's strata first appear among the rows.
 fn group_strata(groups: &Groups, strata: &Strata) -> Vec<Vec<(u32, u64)>> {
+    let n_strata = strata.sizes.len();
+    if groups.len().saturating_mul(n_strata) <= DENSE_GROUP_STRATA {
+        group_strata_dense(groups, strata)
+    } else {
+        group_strata_sparse(groups, strata)
+    }
+}
+
+/// [`group_strata`] through one table of counts and first rows: no list
+/// searched per row.
+fn group_strata_dense(groups: &Groups, strata: &Strata) -> Vec<Vec<(u32, u64)>> {
+    let n_strata = strata.sizes.len();
+    let mut counts = vec![0u64; groups.len() * n_strata];
+    let mut first = vec![0u32; groups.len() * n_strata];
+    for (row, (&g, &s)) in groups.row_group.iter().zip(&strata.row_stratum).enumerate() {
+        let i = g as usize * n_strata + s as usize;
+        if counts[i] == 0 {
+            first[i] = row as u32;
+        }
+        counts[i] += 1;
+    }
+    (0..groups.len())
+        .map(|g| {
+            let at = g * n_strata;
+            let mut list: Vec<(u32, u64)> =
+                (0..n_strata).filter(|&s| counts[at + s] > 0).map(|s| (s as u32, counts[at + s])).collect();
+            list.sort_unstable_by_key(|&(s, _)| first[at + s as usize]);
+            list
+        })
+        .collect()
+}
+
+/// [`group_strata`] with a list per group, for many groups and strata.
+fn group_strata_sparse(groups: &Groups, strata: &Strata) -> Vec<Vec<(u32, u64)>> {
     let mut out: Vec<Vec<(u32, u64)>> = vec![Vec::new(); groups.len()];
     for (row, &g) in groups.row_group.iter().enumerate() {
         let s = strata.row_stratum[row];
@@ -514,6 +552,24 @@ mod tests {
             prop_assert_eq!(&dict.row_group, &plain.row_group);
             prop_assert_eq!(&dict.sizes, &plain.sizes);
             prop_assert_eq!(&dict.digests, &plain.digests);
+        }
+    }
+
+    proptest! {
+        /// Counting in one table gives each group's strata and counts in
+        /// the order the list per group gives them (first appearance).
+        #[test]
+        fn group_strata_table_matches_the_lists(
+            rows in proptest::collection::vec((0u8..30, 0u32..5), 1..400),
+        ) {
+            let groups = groups_of(&rows.iter().map(|r| r.0).collect::<Vec<_>>());
+            let row_stratum: Vec<u32> = rows.iter().map(|r| r.1).collect();
+            let mut sizes = vec![0u64; 5];
+            for &s in &row_stratum {
+                sizes[s as usize] += 1;
+            }
+            let strata = Strata { row_stratum, labels: (0..5).map(|s| s.to_string()).collect(), sizes, columns: Vec::new() };
+            prop_assert_eq!(group_strata_dense(&groups, &strata), group_strata_sparse(&groups, &strata));
         }
     }
 
