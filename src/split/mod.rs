@@ -512,6 +512,10 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
 
     // Pass one: what decides every row's partition.
     let facts = first_pass(cfg, &table, kept, format, &stratify_types, &group, &spec)?;
+    // Pass two's reading starts now: its first batches are decoded while
+    // the rows are assigned (on one core).
+    let raw_csv = format == Format::Csv && output_format == Format::Csv;
+    let mut batches = table.batches(None, raw_csv)?.read_ahead();
     let rows = facts.rows;
     let strata = &facts.strata;
     let partitions = cfg.ratios.partitions().to_vec();
@@ -578,7 +582,6 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     // Pass two: write, digest, seal.
     let staging = Staging { path: sibling(&cfg.out, "staging"), done: false };
     std::fs::create_dir(&staging.path).map_err(|e| Error::io(&staging.path, "cannot create", e))?;
-    let raw_csv = format == Format::Csv && output_format == Format::Csv;
     let fold_schema = with_fold_column(&schema, &cfg.fold_column);
     // Read once for every writer: the CSV header, the input's Parquet codec.
     let csv_header = if raw_csv { Some(table.csv_header()?) } else { None };
@@ -628,7 +631,6 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let mut time_ranges: Vec<Option<(i64, i64)>> = vec![None; k];
     // Decoding, digesting and each file's encoding run on threads of their
     // own; every stream keeps its order, so the outputs do not depend on them.
-    let mut batches = table.batches(None, raw_csv)?.read_ahead();
     let mut batch_digests = Vec::new();
     let mut test_digests = Vec::new();
     let row_ids = RowIds::new(cfg.seed);
