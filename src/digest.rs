@@ -588,9 +588,6 @@ impl GroupSpec {
         Ok(GroupEncoder { key: &self.key, encoders })
     }
 
-}
-
-impl GroupSpec {
     /// The group digest of each row of a batch, appended to `out`: hashed
     /// side by side ([`lanes`]), which costs less than looking a group's
     /// key up among those seen before.
@@ -603,9 +600,7 @@ impl GroupSpec {
         out.extend(par_chunks(&rows, |chunk, scratch, out| enc.digests(chunk, scratch, out)));
         Ok(())
     }
-}
 
-impl GroupSpec {
     /// For a key of one group column given as a dictionary: the group
     /// digest of each of its `values`, then that of null (one entry more).
     ///
