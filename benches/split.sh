@@ -13,7 +13,9 @@
 # once, floors included, so that a figure and its floor are measured in the
 # same minutes (a shared machine's speed drifts from minute to minute).
 # Reports wall seconds (the median of the rounds, with the fastest and
-# slowest beside it), rows per second, peak resident memory (GNU time, the
+# slowest beside it), rows per second, CPU seconds (user and system, the
+# median of the rounds: it drifts less than wall time, and says how much of
+# both cores a command keeps busy), peak resident memory (GNU time, the
 # largest of the rounds) and the ratio of the median to the floor's median.
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -22,26 +24,29 @@ repeat=${REPEAT:-3}
 cargo build --release --quiet --bin cleave --example demo_data --example copy_floor --example read_floor --example hash_floor
 bin=target/release/cleave
 mkdir -p bench-data
-measure() { # key command...: appends "seconds KiB" to bench-data/times-KEY.txt
+measure() { # key command...: appends "seconds KiB cpu-seconds" to bench-data/times-KEY.txt
   local key=$1; shift
-  /usr/bin/time -f '%e %M' -o bench-data/time.txt "$@" > /dev/null 2> bench-data/stderr.txt || {
+  /usr/bin/time -f '%e %M %U %S' -o bench-data/time.txt "$@" > /dev/null 2> bench-data/stderr.txt || {
     # check exits 1 when it finds leaks, which the benchmark plants on purpose
     [ "$key" = check ] || { cat bench-data/stderr.txt; exit 1; }
   }
-  tail -n 1 bench-data/time.txt >> "bench-data/times-$key.txt"
+  tail -n 1 bench-data/time.txt | awk '{ print $1, $2, $3 + $4 }' >> "bench-data/times-$key.txt"
 }
-median() { # key: "median fastest slowest KiB" of its rounds
-  sort -n "bench-data/times-$1.txt" | awk '
-    { s[NR] = $1; if ($2 > k) k = $2 }
-    END { m = (NR % 2 ? s[(NR + 1) / 2] : (s[NR / 2] + s[NR / 2 + 1]) / 2); print m, s[1], s[NR], k }'
+middle() { # column file: the median of a column of numbers
+  cut -d' ' -f"$1" "$2" | sort -n | awk '{ v[NR] = $1 } END { print (NR % 2 ? v[(NR + 1) / 2] : (v[NR / 2] + v[NR / 2 + 1]) / 2) }'
+}
+median() { # key: "median fastest slowest KiB median-cpu" of its rounds
+  local f="bench-data/times-$1.txt"
+  echo "$(middle 1 "$f") $(sort -n "$f" | head -n 1 | cut -d' ' -f1) $(sort -n "$f" | tail -n 1 | cut -d' ' -f1)" \
+    "$(cut -d' ' -f2 "$f" | sort -n | tail -n 1) $(middle 3 "$f")"
 }
 report() { # label key rows floor_key (or -)
   local label=$1 key=$2 rows=$3 floor=0
   [ "$4" = - ] || floor=$(median "$4" | cut -d' ' -f1)
-  read -r secs lo hi kib < <(median "$key")
-  awk -v l="$label" -v s="$secs" -v lo="$lo" -v hi="$hi" -v k="$kib" -v n="$rows" -v f="$floor" 'BEGIN {
+  read -r secs lo hi kib cpu < <(median "$key")
+  awk -v l="$label" -v s="$secs" -v lo="$lo" -v hi="$hi" -v k="$kib" -v c="$cpu" -v n="$rows" -v f="$floor" 'BEGIN {
     ratio = (f > 0 ? sprintf("%.2fx", s / f) : "-")
-    printf "%-34s %7.2f s (%.2f-%.2f) %11.0f rows/s %7.0f MiB   %s of floor\n", l, s, lo, hi, (s > 0 ? n / s : 0), k / 1024, ratio }'
+    printf "%-34s %7.2f s (%.2f-%.2f) %11.0f rows/s %6.2f CPU-s %7.0f MiB   %s of floor\n", l, s, lo, hi, (s > 0 ? n / s : 0), c, k / 1024, ratio }'
 }
 # BLAKE3 alone, one row's worth of bytes at a time (the demo rows encode to
 # about 150 bytes): no row digest can cost less, whatever the I/O.
