@@ -337,6 +337,8 @@ pub struct Scratch {
     digests: [Vec<RowDigest>; 3],
     /// Encodings of values seen before, one cache per column position.
     caches: Vec<ValueCache>,
+    /// One column's encodings of a chunk end to end, and where each ends.
+    columns: Vec<(Vec<u8>, Vec<u32>)>,
 }
 
 /// Column positions with a value cache (80 KiB each, per thread); columns
@@ -460,17 +462,48 @@ impl BatchEncoder<'_> {
 /// side ([`lanes`]).
 fn digest_rows(encoders: &[Encoder], key: &[u8; 32], rows: &[usize], scratch: &mut Scratch, out: &mut Vec<RowDigest>) {
     scratch.caches(encoders.len());
-    let Scratch { exact: buf, ranges, caches, .. } = scratch;
+    while scratch.columns.len() < encoders.len() {
+        scratch.columns.push((Vec::new(), Vec::new()));
+    }
+    let Scratch { exact: buf, ranges, caches, columns, .. } = scratch;
+    if let ([e], (_, ends)) = (encoders, &mut columns[0]) {
+        // One column: its values are the rows.
+        buf.clear();
+        ends.clear();
+        ends.push(0);
+        e.write_column(rows, &mut caches[0], buf, ends);
+        let ranges = &mut ranges[1];
+        ranges.clear();
+        ranges.extend(ends.windows(2).map(|w| w[0] as usize..w[1] as usize));
+        lanes::keyed_many(key, buf, ranges, out);
+        return;
+    }
+    // Column by column: each column's values of the chunk end to end, in a
+    // loop that knows the column's type.
+    for ((e, cache), (bytes, ends)) in encoders.iter().zip(caches.iter_mut()).zip(columns.iter_mut()) {
+        bytes.clear();
+        ends.clear();
+        ends.push(0);
+        e.write_column(rows, cache, bytes, ends);
+        // Room to copy any value as a fixed 32-byte window.
+        bytes.extend_from_slice(&[0; SLOT_BYTES]);
+    }
+    // Then row by row, each value copied from its column.
     let ranges = &mut ranges[1];
     buf.clear();
     ranges.clear();
-    for (k, &row) in rows.iter().enumerate() {
-        if let Some(&ahead) = rows.get(k + PREFETCH_ROWS) {
-            encoders.iter().for_each(|e| e.prefetch(ahead));
-        }
+    let columns = &columns[..encoders.len()];
+    for i in 0..rows.len() {
         let start = buf.len();
-        for (e, cache) in encoders.iter().zip(caches.iter_mut()) {
-            e.write_cached(row, buf, None, cache);
+        for (bytes, ends) in columns {
+            let (from, to) = (ends[i] as usize, ends[i + 1] as usize);
+            if to - from <= SLOT_BYTES {
+                let end = buf.len() + (to - from);
+                buf.extend_from_slice(&bytes[from..from + SLOT_BYTES]);
+                buf.truncate(end);
+            } else {
+                buf.extend_from_slice(&bytes[from..to]);
+            }
         }
         ranges.push(start..buf.len());
     }
@@ -729,6 +762,12 @@ impl ValueCache {
     }
 }
 
+/// The slot of a value in a [`ValueCache`] by its type tag and bits.
+#[inline(always)]
+fn slot_index(kind: u8, bits: u64) -> usize {
+    (bits.wrapping_add(kind as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15) >> (64 - SLOTS_LOG2)) as usize
+}
+
 /// Appends `encoding`, copied as a whole slot (a fixed-size copy is a few
 /// instructions; one of varying length is a call).
 #[inline(always)]
@@ -901,8 +940,7 @@ impl Encoder {
             }
             return;
         };
-        let index = (bits.wrapping_add(kind as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15) >> (64 - SLOTS_LOG2)) as usize;
-        let slot = &mut cache.slots[index];
+        let slot = &mut cache.slots[slot_index(kind, bits)];
         if slot.kind == kind && slot.bits == bits {
             put(exact, &slot.exact, slot.exact_len);
         } else {
@@ -930,6 +968,91 @@ impl Encoder {
             }
         } else {
             put(loose, &slot.loose, slot.loose_len);
+        }
+    }
+
+    /// Appends the exact encoding of the value of each of `rows` to `out`,
+    /// and after each where it ends to `ends`: as [`Encoder::write_cached`]
+    /// row by row, in a loop per type (a column's values are read in order,
+    /// which the processor follows without being asked).
+    fn write_column(&self, rows: &[usize], cache: &mut ValueCache, out: &mut Vec<u8>, ends: &mut Vec<u32>) {
+        if cache.slots.is_empty() {
+            for &row in rows {
+                self.write(row, out, false);
+                ends.push(out.len() as u32);
+            }
+            return;
+        }
+        match &self.kind {
+            // The tags are those of `cache_key`.
+            Kind::Float64(a) => self.column_cached(rows, cache, out, ends, 1, |r| a[r].to_bits()),
+            Kind::Float32(a) => self.column_cached(rows, cache, out, ends, 2, |r| a[r].to_bits() as u64),
+            Kind::Int64(a) => self.column_cached(rows, cache, out, ends, 3, |r| a[r] as u64),
+            Kind::UInt64(a) => self.column_cached(rows, cache, out, ends, 4, |r| a[r]),
+            Kind::Date(a) => self.column_cached(rows, cache, out, ends, 5, |r| a[r] as u32 as u64),
+            Kind::Utf8(a) => {
+                for &row in rows {
+                    if self.nulls.as_ref().is_some_and(|n| n.is_null(row)) {
+                        out.push(TAG_NULL);
+                    } else {
+                        write_text(a, row, out);
+                    }
+                    ends.push(out.len() as u32);
+                }
+            }
+            Kind::Timestamp { values, per_second, zoned } => {
+                let (per_second, zoned) = (*per_second, *zoned);
+                let tag = if zoned { TAG_TIMESTAMP } else { TAG_LOCAL_TIMESTAMP };
+                for &row in rows {
+                    if self.nulls.as_ref().is_some_and(|n| n.is_null(row)) {
+                        out.push(TAG_NULL);
+                    } else {
+                        let v = values[row];
+                        let secs = v.div_euclid(per_second);
+                        let nanos = v.rem_euclid(per_second) * (1_000_000_000 / per_second);
+                        with_len(out, tag, |o| write_timestamp(secs, nanos as u32, zoned, o));
+                    }
+                    ends.push(out.len() as u32);
+                }
+            }
+            _ => {
+                for &row in rows {
+                    self.write(row, out, false);
+                    ends.push(out.len() as u32);
+                }
+            }
+        }
+    }
+
+    /// [`Encoder::write_column`] for a type whose encodings are cached under
+    /// `tag` and the value's bits.
+    #[inline(always)]
+    fn column_cached(
+        &self,
+        rows: &[usize],
+        cache: &mut ValueCache,
+        out: &mut Vec<u8>,
+        ends: &mut Vec<u32>,
+        tag: u8,
+        bits: impl Fn(usize) -> u64,
+    ) {
+        for &row in rows {
+            if self.nulls.as_ref().is_some_and(|n| n.is_null(row)) {
+                out.push(TAG_NULL);
+            } else {
+                let b = bits(row);
+                let slot = &mut cache.slots[slot_index(tag, b)];
+                if slot.kind == tag && slot.bits == b {
+                    put(out, &slot.exact, slot.exact_len);
+                } else {
+                    let at = out.len();
+                    self.write(row, out, false);
+                    if let Some((bytes, len)) = fill(&out[at..]) {
+                        *slot = Slot { kind: tag, exact_len: len, loose_len: 0, bits: b, exact: bytes, loose: [0; SLOT_BYTES] };
+                    }
+                }
+            }
+            ends.push(out.len() as u32);
         }
     }
 
@@ -991,20 +1114,7 @@ impl Encoder {
                     });
                     LOOSE_TEXT.with(|cell| cell.set(n));
                 } else {
-                    // Short text is copied as a fixed 32-byte window of the
-                    // array's value buffer, then cut to length (a copy of
-                    // varying length is a call; one of fixed length is not).
-                    out.push(TAG_STRING);
-                    out.extend_from_slice(&(s.len() as u32).to_le_bytes());
-                    let start = a.value_offsets()[row] as usize;
-                    match a.value_data().get(start..start + 32) {
-                        Some(window) if s.len() <= 32 => {
-                            let end = out.len() + s.len();
-                            out.extend_from_slice(window);
-                            out.truncate(end);
-                        }
-                        _ => out.extend_from_slice(s.as_bytes()),
-                    }
+                    write_text(a, row, out);
                 }
             }
             Kind::Binary(a) => with_len(out, TAG_BINARY, |o| o.extend_from_slice(a.value(row))),
@@ -1017,6 +1127,25 @@ impl Encoder {
                 with_len(out, tag, |o| write_timestamp(secs, nanos as u32, *zoned, o));
             }
         }
+    }
+}
+
+/// Appends the exact encoding of text value `row` (not null). Short text is
+/// copied as a fixed 32-byte window of the array's value buffer, then cut to
+/// length (a copy of varying length is a call; one of fixed length is not).
+#[inline(always)]
+fn write_text(a: &StringArray, row: usize, out: &mut Vec<u8>) {
+    let s = a.value(row);
+    out.push(TAG_STRING);
+    out.extend_from_slice(&(s.len() as u32).to_le_bytes());
+    let start = a.value_offsets()[row] as usize;
+    match a.value_data().get(start..start + 32) {
+        Some(window) if s.len() <= 32 => {
+            let end = out.len() + s.len();
+            out.extend_from_slice(window);
+            out.truncate(end);
+        }
+        _ => out.extend_from_slice(s.as_bytes()),
     }
 }
 
@@ -1326,6 +1455,79 @@ mod tests {
                     RowDigests { row: crate_digest(&spec.row_key, &exact), features, loose: crate_digest(&spec.loose_key, &loose) };
                 assert_eq!(all[row], expected, "row {row}");
                 assert_eq!(plain[row], expected.row, "row {row}");
+            }
+        }
+    }
+
+    /// Rows encoded column by column (row digests) digest as each row
+    /// encoded value by value and hashed by the `blake3` crate: every type,
+    /// nulls, text longer than a copy window, and rows picked out of order.
+    #[test]
+    fn column_by_column_encoding_digests_as_row_by_row() {
+        use arrow_array::{
+            BinaryArray, BooleanArray, Date32Array, Decimal128Array, Float32Array, Float64Array, Int64Array,
+            TimestampMicrosecondArray, TimestampMillisecondArray, UInt64Array,
+        };
+        use std::sync::Arc;
+        let n = 3000;
+        let long = "a note much longer than the thirty-two bytes of a copy window, ünïcode too";
+        let columns: Vec<(&str, ArrayRef)> = vec![
+            ("f64", Arc::new((0..n).map(|i| (i % 13 != 0).then_some((i % 37) as f64 * 0.25)).collect::<Float64Array>())),
+            ("f32", Arc::new((0..n).map(|i| (i % 5 != 1).then_some((i % 9) as f32 * 0.1)).collect::<Float32Array>())),
+            ("i64", Arc::new((0..n).map(|i| (i % 17 != 2).then_some(i as i64 * 7919 - 40_000)).collect::<Int64Array>())),
+            ("u64", Arc::new((0..n).map(|i| Some(u64::MAX - (i % 4) as u64)).collect::<UInt64Array>())),
+            ("date", Arc::new((0..n).map(|i| (i % 7 != 3).then_some(i as i32 - 1500)).collect::<Date32Array>())),
+            (
+                "text",
+                Arc::new(
+                    (0..n).map(|i| (i % 11 != 4).then(|| if i % 3 == 0 { long.to_string() } else { format!("st-{i}") })).collect::<StringArray>(),
+                ),
+            ),
+            (
+                "zoned",
+                Arc::new(
+                    (0..n)
+                        .map(|i| (i % 19 != 5).then_some(1_700_000_000_123_456 + i as i64 * 86_399_999_999))
+                        .collect::<TimestampMicrosecondArray>()
+                        .with_timezone("+00:00"),
+                ),
+            ),
+            ("local", Arc::new((0..n).map(|i| Some(-86_400_000 + i as i64 * 1_001)).collect::<TimestampMillisecondArray>())),
+            ("flag", Arc::new((0..n).map(|i| (i % 6 != 0).then_some(i % 4 == 1)).collect::<BooleanArray>())),
+            (
+                "amount",
+                Arc::new((0..n).map(|i| Some(i as i128 * 125 - 9000)).collect::<Decimal128Array>().with_precision_and_scale(12, 2).unwrap()),
+            ),
+            ("bytes", Arc::new((0..n).map(|i| (i % 8 != 7).then(|| vec![i as u8; i % 40])).collect::<BinaryArray>())),
+        ];
+        let names: Vec<String> = columns.iter().map(|(n, _)| n.to_string()).collect();
+        let spec = DigestSpec::new(&names, &[], None);
+        let batch = RecordBatch::try_from_iter(columns).unwrap();
+        let bound = spec.bind(Path::new("t"), &batch.schema()).unwrap();
+        let enc = bound.encoder(&batch).unwrap();
+        // Every third row backwards, then every row: more than one chunk.
+        let picks: Vec<usize> = (0..n).rev().step_by(3).chain(0..n).collect();
+        let mut digests = Vec::new();
+        bound.row_digests_of(&batch, &picks, &mut digests).unwrap();
+        assert_eq!(digests.len(), picks.len());
+        for (&row, d) in picks.iter().zip(&digests) {
+            let mut exact = Vec::new();
+            for e in &enc.encoders {
+                e.write(row, &mut exact, false);
+            }
+            assert_eq!(*d, crate_digest(&spec.row_key, &exact), "row {row}");
+        }
+        // A key of one column (as group keys mostly are) is encoded straight
+        // into the rows' buffer.
+        for (i, name) in spec.features().iter().enumerate() {
+            let one = DigestSpec::new(std::slice::from_ref(name), &[], None);
+            let bound = one.bind(Path::new("t"), &batch.schema()).unwrap();
+            let mut digests = Vec::new();
+            bound.row_digests_of(&batch, &picks, &mut digests).unwrap();
+            for (&row, d) in picks.iter().zip(&digests) {
+                let mut exact = Vec::new();
+                enc.encoders[i].write(row, &mut exact, false);
+                assert_eq!(*d, crate_digest(&one.row_key, &exact), "column {name}, row {row}");
             }
         }
     }
