@@ -932,33 +932,20 @@ impl Encoder {
     /// loose encoding to `loose`, from `cache` where it can.
     #[inline]
     fn write_cached(&self, row: usize, exact: &mut Vec<u8>, loose: Option<&mut Vec<u8>>, cache: &mut ValueCache) {
-        let Some((kind, bits)) = self.cache_key(row).filter(|_| !cache.slots.is_empty()) else {
-            let at = exact.len();
-            self.write(row, exact, false);
-            if let Some(loose) = loose {
-                self.loosen(row, &exact[at..], loose);
+        let at = exact.len();
+        let held = match self.cache_key(row).filter(|_| !cache.slots.is_empty()) {
+            Some((kind, bits)) => self.put_cached(row, kind, bits, cache, exact).then(|| slot_index(kind, bits)),
+            None => {
+                self.write(row, exact, false);
+                None
             }
+        };
+        let Some(loose) = loose else { return };
+        let Some(index) = held else {
+            self.loosen(row, &exact[at..], loose);
             return;
         };
-        let slot = &mut cache.slots[slot_index(kind, bits)];
-        if slot.kind == kind && slot.bits == bits {
-            put(exact, &slot.exact, slot.exact_len);
-        } else {
-            let at = exact.len();
-            self.write(row, exact, false);
-            match fill(&exact[at..]) {
-                Some((bytes, len)) => {
-                    *slot = Slot { kind, exact_len: len, loose_len: 0, bits, exact: bytes, loose: [0; SLOT_BYTES] };
-                }
-                None => {
-                    if let Some(loose) = loose {
-                        self.loosen(row, &exact[at..], loose);
-                    }
-                    return;
-                }
-            }
-        }
-        let Some(loose) = loose else { return };
+        let slot = &mut cache.slots[index];
         if slot.loose_len == 0 {
             let at = loose.len();
             self.loosen(row, &slot.exact[..slot.exact_len as usize], loose);
@@ -968,6 +955,28 @@ impl Encoder {
             }
         } else {
             put(loose, &slot.loose, slot.loose_len);
+        }
+    }
+
+    /// Appends value `row`'s exact encoding to `out` from its slot in
+    /// `cache` (`kind` and `bits` being its cache key), or writes it and
+    /// fills the slot; returns whether the slot holds the value now (an
+    /// encoding longer than a slot is not kept).
+    #[inline(always)]
+    fn put_cached(&self, row: usize, kind: u8, bits: u64, cache: &mut ValueCache, out: &mut Vec<u8>) -> bool {
+        let slot = &mut cache.slots[slot_index(kind, bits)];
+        if slot.kind == kind && slot.bits == bits {
+            put(out, &slot.exact, slot.exact_len);
+            return true;
+        }
+        let at = out.len();
+        self.write(row, out, false);
+        match fill(&out[at..]) {
+            Some((bytes, len)) => {
+                *slot = Slot { kind, exact_len: len, loose_len: 0, bits, exact: bytes, loose: [0; SLOT_BYTES] };
+                true
+            }
+            None => false,
         }
     }
 
@@ -1040,17 +1049,7 @@ impl Encoder {
             if self.nulls.as_ref().is_some_and(|n| n.is_null(row)) {
                 out.push(TAG_NULL);
             } else {
-                let b = bits(row);
-                let slot = &mut cache.slots[slot_index(tag, b)];
-                if slot.kind == tag && slot.bits == b {
-                    put(out, &slot.exact, slot.exact_len);
-                } else {
-                    let at = out.len();
-                    self.write(row, out, false);
-                    if let Some((bytes, len)) = fill(&out[at..]) {
-                        *slot = Slot { kind: tag, exact_len: len, loose_len: 0, bits: b, exact: bytes, loose: [0; SLOT_BYTES] };
-                    }
-                }
+                self.put_cached(row, tag, bits(row), cache, out);
             }
             ends.push(out.len() as u32);
         }
