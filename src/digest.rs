@@ -137,26 +137,35 @@ pub fn hex_into(bytes: &[u8], out: &mut [u8]) {
 /// duplicates (a sorted list, never a XOR or sum). Sorts `digests`.
 pub fn content_digest(digests: &mut [RowDigest]) -> String {
     sort_digests(digests);
-    content_digest_of_sorted(digests)
+    content_digest_of_sorted([&*digests])
 }
 
-/// [`content_digest`] of digests already sorted by [`sort_digests`].
-pub fn content_digest_of_sorted(digests: &[RowDigest]) -> String {
-    debug_assert!(digests.is_sorted(), "content digests are taken over sorted digests");
-    // The digests lie end to end in memory: one update over all their bytes
-    // hashes across threads and whole chunks at a time, where an update per
-    // 16-byte digest compressed one block at a time on one thread. BLAKE3
-    // gives the same hash however its input is cut.
+/// [`content_digest`] of sorted lists of digests which, end to end, are in
+/// [`sort_digests`]'s order.
+fn content_digest_of_sorted<'a>(lists: impl IntoIterator<Item = &'a [RowDigest]>) -> String {
+    // A list's digests lie end to end in memory: one update over all their
+    // bytes hashes across threads and whole chunks at a time, where an
+    // update per 16-byte digest compressed one block at a time on one
+    // thread. BLAKE3 gives the same hash however its input is cut.
     let mut h = blake3::Hasher::new_derive_key(CONTENT_CONTEXT);
-    h.update_rayon(digests.as_flattened());
+    for list in lists {
+        debug_assert!(list.is_sorted_by_key(digest_order), "content digests are taken over sorted digests");
+        h.update_rayon(list.as_flattened());
+    }
     h.finalize().to_hex().to_string()
+}
+
+/// The order of digests: as 128-bit big-endian integers, which is their
+/// byte order (one comparison each).
+fn digest_order(d: &RowDigest) -> u128 {
+    u128::from_be_bytes(*d)
 }
 
 /// Sorts digests in byte order (as 128-bit big-endian integers: one
 /// comparison each, and across threads; the result is the same either way).
 pub fn sort_digests(digests: &mut [RowDigest]) {
     use rayon::slice::ParallelSliceMut;
-    digests.par_sort_unstable_by_key(|d| u128::from_be_bytes(*d));
+    digests.par_sort_unstable_by_key(digest_order);
 }
 
 /// Row digests kept in 256 lists by their first byte: the lists end to end,
@@ -198,7 +207,7 @@ impl DigestBuckets {
     /// Sorts every list ([`sort_digests`]'s order), across threads.
     pub fn sort(&mut self) {
         use rayon::prelude::*;
-        self.lists.par_iter_mut().for_each(|l| l.sort_unstable_by_key(|d| u128::from_be_bytes(*d)));
+        self.lists.par_iter_mut().for_each(|l| l.sort_unstable_by_key(digest_order));
     }
 
     /// The lists by first byte; after [`DigestBuckets::sort`], end to end
@@ -209,12 +218,7 @@ impl DigestBuckets {
 
     /// [`content_digest`] of the digests, once sorted.
     pub fn content_digest(&self) -> String {
-        debug_assert!(self.lists.iter().all(|l| l.is_sorted()), "content digests are taken over sorted digests");
-        let mut h = blake3::Hasher::new_derive_key(CONTENT_CONTEXT);
-        for list in &self.lists {
-            h.update_rayon(list.as_flattened());
-        }
-        h.finalize().to_hex().to_string()
+        content_digest_of_sorted(self.lists.iter().map(Vec::as_slice))
     }
 }
 
@@ -985,20 +989,14 @@ impl Encoder {
     /// row by row, in a loop per type (a column's values are read in order,
     /// which the processor follows without being asked).
     fn write_column(&self, rows: &[usize], cache: &mut ValueCache, out: &mut Vec<u8>, ends: &mut Vec<u32>) {
-        if cache.slots.is_empty() {
-            for &row in rows {
-                self.write(row, out, false);
-                ends.push(out.len() as u32);
-            }
-            return;
-        }
+        let cached = !cache.slots.is_empty();
         match &self.kind {
             // The tags are those of `cache_key`.
-            Kind::Float64(a) => self.column_cached(rows, cache, out, ends, 1, |r| a[r].to_bits()),
-            Kind::Float32(a) => self.column_cached(rows, cache, out, ends, 2, |r| a[r].to_bits() as u64),
-            Kind::Int64(a) => self.column_cached(rows, cache, out, ends, 3, |r| a[r] as u64),
-            Kind::UInt64(a) => self.column_cached(rows, cache, out, ends, 4, |r| a[r]),
-            Kind::Date(a) => self.column_cached(rows, cache, out, ends, 5, |r| a[r] as u32 as u64),
+            Kind::Float64(a) if cached => self.column_cached(rows, cache, out, ends, 1, |r| a[r].to_bits()),
+            Kind::Float32(a) if cached => self.column_cached(rows, cache, out, ends, 2, |r| a[r].to_bits() as u64),
+            Kind::Int64(a) if cached => self.column_cached(rows, cache, out, ends, 3, |r| a[r] as u64),
+            Kind::UInt64(a) if cached => self.column_cached(rows, cache, out, ends, 4, |r| a[r]),
+            Kind::Date(a) if cached => self.column_cached(rows, cache, out, ends, 5, |r| a[r] as u32 as u64),
             Kind::Utf8(a) => {
                 for &row in rows {
                     if self.nulls.as_ref().is_some_and(|n| n.is_null(row)) {
@@ -1010,16 +1008,11 @@ impl Encoder {
                 }
             }
             Kind::Timestamp { values, per_second, zoned } => {
-                let (per_second, zoned) = (*per_second, *zoned);
-                let tag = if zoned { TAG_TIMESTAMP } else { TAG_LOCAL_TIMESTAMP };
                 for &row in rows {
                     if self.nulls.as_ref().is_some_and(|n| n.is_null(row)) {
                         out.push(TAG_NULL);
                     } else {
-                        let v = values[row];
-                        let secs = v.div_euclid(per_second);
-                        let nanos = v.rem_euclid(per_second) * (1_000_000_000 / per_second);
-                        with_len(out, tag, |o| write_timestamp(secs, nanos as u32, zoned, o));
+                        write_timestamp_value(values[row], *per_second, *zoned, out);
                     }
                     ends.push(out.len() as u32);
                 }
@@ -1118,13 +1111,7 @@ impl Encoder {
             }
             Kind::Binary(a) => with_len(out, TAG_BINARY, |o| o.extend_from_slice(a.value(row))),
             Kind::Date(a) => with_len(out, TAG_DATE, |o| write_date(a[row] as i64, o)),
-            Kind::Timestamp { values, per_second, zoned } => {
-                let v = values[row];
-                let secs = v.div_euclid(*per_second);
-                let nanos = v.rem_euclid(*per_second) * (1_000_000_000 / per_second);
-                let tag = if *zoned { TAG_TIMESTAMP } else { TAG_LOCAL_TIMESTAMP };
-                with_len(out, tag, |o| write_timestamp(secs, nanos as u32, *zoned, o));
-            }
+            Kind::Timestamp { values, per_second, zoned } => write_timestamp_value(values[row], *per_second, *zoned, out),
         }
     }
 }
@@ -1146,6 +1133,16 @@ fn write_text(a: &StringArray, row: usize, out: &mut Vec<u8>) {
         }
         _ => out.extend_from_slice(s.as_bytes()),
     }
+}
+
+/// Appends the encoding of timestamp value `v`, counted in `1 / per_second`
+/// seconds since the epoch (not null).
+#[inline(always)]
+fn write_timestamp_value(v: i64, per_second: i64, zoned: bool, out: &mut Vec<u8>) {
+    let secs = v.div_euclid(per_second);
+    let nanos = v.rem_euclid(per_second) * (1_000_000_000 / per_second);
+    let tag = if zoned { TAG_TIMESTAMP } else { TAG_LOCAL_TIMESTAMP };
+    with_len(out, tag, |o| write_timestamp(secs, nanos as u32, zoned, o));
 }
 
 fn with_len(out: &mut Vec<u8>, tag: u8, body: impl FnOnce(&mut Vec<u8>)) {

@@ -27,7 +27,7 @@ use arrow_schema::{DataType, Field, Schema, SchemaRef, TimeUnit};
 use parquet::arrow::arrow_reader::{ArrowReaderMetadata, ParquetRecordBatchReader, ParquetRecordBatchReaderBuilder};
 
 pub use self::csv::{KeptText, RawRows};
-pub use self::pipe::{ReadAhead, WriterThread};
+pub use self::pipe::{Background, ReadAhead, WriterThread};
 pub use self::write::{parse_compression, write_small, write_streamed, FileSummary, PartitionWriter};
 use crate::error::{Error, Result};
 use crate::value;
@@ -689,7 +689,7 @@ fn hash_reading(path: &Path, parallel: bool, stop: Option<&AtomicBool>) -> Resul
 /// thread stops at its next read and is waited for.
 pub struct HashingThread {
     stop: Arc<AtomicBool>,
-    handle: Option<std::thread::JoinHandle<Result<FileSummary>>>,
+    thread: Option<Background<Result<FileSummary>>>,
 }
 
 impl HashingThread {
@@ -697,8 +697,8 @@ impl HashingThread {
     pub fn start(path: &Path) -> HashingThread {
         let stop = Arc::new(AtomicBool::new(false));
         let (path, flag) = (path.to_path_buf(), stop.clone());
-        let handle = std::thread::spawn(move || hash_reading(&path, false, Some(&flag)));
-        HashingThread { stop, handle: Some(handle) }
+        let thread = Background::spawn(move || hash_reading(&path, false, Some(&flag)));
+        HashingThread { stop, thread: Some(thread) }
     }
 
     /// The file's size and hash.
@@ -706,20 +706,14 @@ impl HashingThread {
     /// # Errors
     /// As [`hash_file`].
     pub fn join(mut self) -> Result<FileSummary> {
-        let handle = self.handle.take().expect("joined once");
-        match handle.join() {
-            Ok(result) => result,
-            Err(panic) => std::panic::resume_unwind(panic),
-        }
+        self.thread.take().expect("joined once").join()
     }
 }
 
 impl Drop for HashingThread {
     fn drop(&mut self) {
+        // Stop at the next read; the thread is then waited for.
         self.stop.store(true, Ordering::Relaxed);
-        if let Some(h) = self.handle.take() {
-            let _ = h.join();
-        }
     }
 }
 

@@ -12,6 +12,32 @@ use arrow_array::RecordBatch;
 use super::{Batch, Batches, FileSummary, Format, PartitionWriter};
 use crate::error::{Error, Result};
 
+/// Work done on a thread of its own. Dropped before [`Background::join`],
+/// it is waited for, so that the thread is done with what it uses (a
+/// staging folder, a file) before its owner goes on.
+pub struct Background<T>(Option<JoinHandle<T>>);
+
+impl<T: Send + 'static> Background<T> {
+    /// Starts `work`.
+    pub fn spawn(work: impl FnOnce() -> T + Send + 'static) -> Self {
+        Background(Some(std::thread::spawn(work)))
+    }
+
+    /// Waits for the work's result; a panic there is raised here again.
+    pub fn join(mut self) -> T {
+        let handle = self.0.take().expect("joined once");
+        handle.join().unwrap_or_else(|panic| std::panic::resume_unwind(panic))
+    }
+}
+
+impl<T> Drop for Background<T> {
+    fn drop(&mut self) {
+        if let Some(handle) = self.0.take() {
+            let _ = handle.join();
+        }
+    }
+}
+
 /// Batches in flight between a decoding thread and its consumer.
 const DEPTH: usize = 2;
 

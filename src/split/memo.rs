@@ -6,7 +6,7 @@
 
 use std::sync::Arc;
 
-use arrow_array::ArrayRef;
+use arrow_array::{Array, ArrayRef, Int32Array};
 
 /// One result slot per value of the last dictionary seen, plus one for null.
 pub struct DictionaryMemo<T> {
@@ -39,6 +39,17 @@ impl<T: Clone> DictionaryMemo<T> {
     /// The slot of null.
     pub fn null_slot(&self) -> usize {
         self.slots.len() - 1
+    }
+
+    /// The slot of row `row` of `keys` (the dictionary's keys): its key's,
+    /// or null's.
+    #[inline]
+    pub fn slot(&self, keys: &Int32Array, row: usize) -> usize {
+        if keys.is_valid(row) {
+            keys.value(row) as usize
+        } else {
+            self.null_slot()
+        }
     }
 }
 

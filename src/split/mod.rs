@@ -755,7 +755,8 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
 
     // Every file is finished and synced on its own thread while the
     // partitions' digests are sorted; the seal files are sorted, written
-    // and synced on a thread of their own meanwhile.
+    // and synced on a thread of their own meanwhile (on an early return it
+    // is waited for, as it is dropped before the staging folder is removed).
     for (_, w) in writers.iter_mut() {
         w.close();
     }
@@ -765,7 +766,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let seal_thread = {
         let dir = staging.path.clone();
         let groups = facts.groups.as_ref().map(|_| test_groups.into_iter().collect::<Vec<seal::SealRecord>>());
-        SealThread(Some(std::thread::spawn(move || write_seal(&dir, &test_seal, groups.as_deref()))))
+        io::Background::spawn(move || write_seal(&dir, &test_seal, groups.as_deref()))
     };
     let source_summary = source_hash.join()?;
     let time_kind = facts.times.as_ref().map(|(_, kind)| *kind);
@@ -965,26 +966,6 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let mut manifest = manifest;
     manifest.checksum = Some(checksum.clone());
     Ok(SplitOutcome { manifest, manifest_checksum: checksum, warnings, dropped_by_gap, dropped_by_group })
-}
-
-/// The thread writing the seal files. Dropped on an early return, it is
-/// waited for, so that it is done with the staging folder before the folder
-/// is removed.
-struct SealThread(Option<std::thread::JoinHandle<Result<Vec<SealFile>>>>);
-
-impl SealThread {
-    fn join(mut self) -> Result<Vec<SealFile>> {
-        let handle = self.0.take().expect("joined once");
-        handle.join().unwrap_or_else(|panic| std::panic::resume_unwind(panic))
-    }
-}
-
-impl Drop for SealThread {
-    fn drop(&mut self) {
-        if let Some(handle) = self.0.take() {
-            let _ = handle.join();
-        }
-    }
 }
 
 /// Test rows whose row digest also occurs in another partition (each

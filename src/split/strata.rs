@@ -129,13 +129,12 @@ impl StrataBuilder {
                         memo.refresh(values, u32::MAX);
                         let encoder = ValueEncoder::new(values, name)?;
                         let keys = dict.keys();
-                        let null = memo.null_slot();
                         let mut key = Vec::with_capacity(32);
-                        for (row, &k) in keys.values().iter().enumerate() {
-                            let slot = if keys.is_valid(row) { k as usize } else { null };
+                        for row in 0..keys.len() {
+                            let slot = memo.slot(keys, row);
                             if memo.slots[slot] == u32::MAX {
                                 key.clear();
-                                if slot == null {
+                                if slot == memo.null_slot() {
                                     ValueEncoder::new(&new_null_array(values.data_type(), 1), name)?.write(0, &mut key);
                                 } else {
                                     encoder.write(slot, &mut key);

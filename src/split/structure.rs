@@ -211,9 +211,8 @@ impl Groups {
     /// (`u32::MAX` until met) spare the lookup for every row after a
     /// value's first.
     pub fn push_keys(&mut self, keys: &Int32Array, memo: &mut DictionaryMemo<(RowDigest, u32)>) {
-        let null = memo.null_slot();
-        for (row, &key) in keys.values().iter().enumerate() {
-            let slot = if keys.is_valid(row) { key as usize } else { null };
+        for row in 0..keys.len() {
+            let slot = memo.slot(keys, row);
             let (digest, known) = &mut memo.slots[slot];
             if *known == u32::MAX {
                 *known = self.id_of(digest);
