@@ -1,9 +1,14 @@
 #!/usr/bin/env bash
 # Benchmarks split, verify and check on demo-scenario data, next to the I/O
 # floor: cleave's own reader and writer copying the same file once with no
-# split work (and pyarrow doing the same, when it is installed). verify is
-# also set beside the read floor: reading every partition once, every
-# column decoded, nothing else done.
+# split work (and pyarrow doing the same, when it is installed). Two more
+# floors show where a split's time must go: the partition floor (the input
+# read once, rows taken into train, validation and test by their group, each
+# written on its own thread, the test rows again as the label-free hand-off:
+# the files a split writes, with no digests, no first pass and no seal) and
+# the digest floor (the input read once and every row digested, nothing
+# written). verify is also set beside the read floor: reading every
+# partition once, every column decoded, nothing else done.
 #
 #   benches/split.sh                 # 1M and 10M rows
 #   benches/split.sh 1000000         # sizes of your choice
@@ -21,7 +26,8 @@ set -euo pipefail
 cd "$(dirname "$0")/.."
 if [ $# -gt 0 ]; then sizes=("$@"); else sizes=(1000000 10000000); fi
 repeat=${REPEAT:-3}
-cargo build --release --quiet --bin cleave --example demo_data --example copy_floor --example read_floor --example hash_floor
+cargo build --release --quiet --bin cleave --example demo_data --example copy_floor --example read_floor --example hash_floor \
+  --example partition_floor --example digest_floor
 bin=target/release/cleave
 mkdir -p bench-data
 measure() { # key command...: appends "seconds KiB cpu-seconds" to bench-data/times-KEY.txt
@@ -67,6 +73,8 @@ for n in "${sizes[@]}"; do
           "import pyarrow.parquet as pq, sys; pq.write_table(pq.read_table(sys.argv[1]), sys.argv[2])" \
           "$input" bench-data/pyarrow-copy.parquet
       fi
+      measure partition target/release/examples/partition_floor "$input" bench-data/partition-floor bloom_class station
+      measure digest target/release/examples/digest_floor "$input" bloom_class
       rm -rf "$out"
       measure split "$bin" split "$input" --out "$out" --stratify bloom_class --label bloom_class --group station
       measure read target/release/examples/read_floor "$out"
@@ -76,7 +84,10 @@ for n in "${sizes[@]}"; do
     done
     report "floor: read + write once" copy "$n" -
     [ ! -f bench-data/times-pyarrow.txt ] || report "pyarrow: read + write once" pyarrow "$n" copy
+    report "partition floor: the split's files" partition "$n" copy
+    report "digest floor: read + row digests" digest "$n" copy
     report "split (stratified, label, group)" split "$n" copy
+    report "split, ratio to partition floor" split "$n" partition
     report "read floor: every partition once" read "$n" -
     report "verify (ratio to the read floor)" verify "$n" read
     report "verify --deep (every partition)" deep "$n" read
