@@ -105,10 +105,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                 let mut ids = StringBuilder::with_capacity(rows, rows * 16);
                 let mut hex = [0u8; 16];
                 for r in 0..rows as u64 {
-                    let id = row_id_bits(first + r);
-                    for (k, digit) in hex.iter_mut().enumerate() {
-                        *digit = b"0123456789abcdef"[(id >> (60 - 4 * k) & 15) as usize];
-                    }
+                    cleave::digest::hex_into(&row_id_bits(first + r).to_be_bytes(), &mut hex);
                     ids.append_value(std::str::from_utf8(&hex).expect("hex digits"));
                 }
                 let mut columns: Vec<ArrayRef> = vec![Arc::new(ids.finish())];
