@@ -3,6 +3,7 @@
 mod bad_input;
 mod check;
 mod formats;
+mod golden;
 mod reference;
 mod score;
 mod split;
