@@ -142,11 +142,17 @@ impl Seal {
         let loaded = manifest::load(manifest)?;
         let path = loaded.path.clone();
         if !loaded.intact() {
-            return Err(untrusted(&path, "was modified after sealing (its checksum does not match): refusing to trust it"));
+            return Err(untrusted(
+                &path,
+                "was modified after sealing (its checksum does not match): refusing to trust it",
+            ));
         }
         if let Some(pin) = pin {
             if pin != loaded.recorded {
-                return Err(untrusted(&path, format!("is {}, not the pinned {pin}: refusing to trust it", loaded.recorded)));
+                return Err(untrusted(
+                    &path,
+                    format!("is {}, not the pinned {pin}: refusing to trust it", loaded.recorded),
+                ));
             }
         }
         crate::verify::check_key(&loaded, key)?;
@@ -171,11 +177,17 @@ impl Seal {
             let summary = io::FileSummary::of(&bytes);
             if summary.blake3 != sf.blake3 || summary.bytes != sf.bytes {
                 let sum = summary.blake3;
-                return Err(untrusted(&path, format!("lists `{}` with BLAKE3 {}, but the file hashes to {sum}", sf.file, sf.blake3)));
+                return Err(untrusted(
+                    &path,
+                    format!("lists `{}` with BLAKE3 {}, but the file hashes to {sum}", sf.file, sf.blake3),
+                ));
             }
             let recs = seal::decode(&bytes).map_err(|e| untrusted(&file, e))?;
             if recs.len() as u64 != sf.records {
-                return Err(untrusted(&file, format!("holds {} records, the manifest says {}", recs.len(), sf.records)));
+                return Err(untrusted(
+                    &file,
+                    format!("holds {} records, the manifest says {}", recs.len(), sf.records),
+                ));
             }
             Ok(Some(recs))
         };
@@ -342,7 +354,12 @@ fn conform(path: &Path, batch: &Batch, name: &str, sealed: ColumnType) -> Result
     let array = batch.data.column_by_name(name).expect("projected").clone();
     let actual = ColumnType::of(array.data_type());
     let same = match actual {
-        Some(a) => a == sealed || (a.is_numeric() && sealed.is_numeric()) || a == ColumnType::Null || sealed == ColumnType::Null,
+        Some(a) => {
+            a == sealed
+                || (a.is_numeric() && sealed.is_numeric())
+                || a == ColumnType::Null
+                || sealed == ColumnType::Null
+        }
         None => false,
     };
     if same {
@@ -352,7 +369,12 @@ fn conform(path: &Path, batch: &Batch, name: &str, sealed: ColumnType) -> Result
         let text = arrow_cast::cast(&array, &DataType::Utf8).expect("text casts to text");
         return io::csv::parse_text_column(text.as_string::<i32>(), sealed).map_err(|(i, expected)| {
             let v = text.as_string::<i32>().value(i);
-            batch.error_at(path, i, name, format!("`{}` is not {expected}, as the seal holds this column", crate::value::shorten(v)))
+            batch.error_at(
+                path,
+                i,
+                name,
+                format!("`{}` is not {expected}, as the seal holds this column", crate::value::shorten(v)),
+            )
         });
     }
     Err(Error::Options(format!(

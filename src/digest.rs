@@ -867,7 +867,12 @@ impl Encoder {
             DataType::Null => Kind::Null,
             DataType::Boolean => Kind::Bool(array.as_boolean().clone()),
             DataType::Int64 => Kind::Int64(array.as_primitive::<Int64Type>().values().clone()),
-            DataType::Int8 | DataType::Int16 | DataType::Int32 | DataType::UInt8 | DataType::UInt16 | DataType::UInt32 => {
+            DataType::Int8
+            | DataType::Int16
+            | DataType::Int32
+            | DataType::UInt8
+            | DataType::UInt16
+            | DataType::UInt32 => {
                 return Encoder::new(&cast(array, &DataType::Int64, name)?, name);
             }
             DataType::UInt64 => Kind::UInt64(array.as_primitive::<UInt64Type>().values().clone()),
@@ -1111,7 +1116,9 @@ impl Encoder {
             }
             Kind::Binary(a) => with_len(out, TAG_BINARY, |o| o.extend_from_slice(a.value(row))),
             Kind::Date(a) => with_len(out, TAG_DATE, |o| write_date(a[row] as i64, o)),
-            Kind::Timestamp { values, per_second, zoned } => write_timestamp_value(values[row], *per_second, *zoned, out),
+            Kind::Timestamp { values, per_second, zoned } => {
+                write_timestamp_value(values[row], *per_second, *zoned, out)
+            }
         }
     }
 }
@@ -1357,7 +1364,8 @@ mod tests {
         let stride = ((last - first) / 200_000) | 1;
         let mut secs = first;
         while secs <= last {
-            let expected = chrono::DateTime::from_timestamp(secs, 0).expect("in range").format("%Y-%m-%dT%H:%M:%S").to_string();
+            let expected =
+                chrono::DateTime::from_timestamp(secs, 0).expect("in range").format("%Y-%m-%dT%H:%M:%S").to_string();
             assert_eq!(ts(secs, 0, false), expected, "{secs}");
             let mut date = Vec::new();
             write_date(secs.div_euclid(86_400), &mut date);
@@ -1367,7 +1375,8 @@ mod tests {
         assert_eq!(ts(last, 0, true), "9999-12-31T23:59:59Z");
         // Runs of one day, across midnights (the thread's last date reused).
         for secs in (86_400 * 19_000 - 5..86_400 * 19_000 + 5).chain(-86_400 - 3..3) {
-            let expected = chrono::DateTime::from_timestamp(secs, 0).expect("in range").format("%Y-%m-%dT%H:%M:%S").to_string();
+            let expected =
+                chrono::DateTime::from_timestamp(secs, 0).expect("in range").format("%Y-%m-%dT%H:%M:%S").to_string();
             assert_eq!(ts(secs, 0, false), expected, "{secs}");
         }
     }
@@ -1389,8 +1398,12 @@ mod tests {
     /// next to the whitespace characters in runs.
     #[test]
     fn ascii_fast_path_agrees_with_the_unicode_path() {
-        let mut texts: Vec<String> = (0u8..128).map(|c| format!("A{}b {} {}Z", c as char, c as char, c as char)).collect();
-        texts.extend(["", " ", "\t\n\x0b\x0c\r ", "  Low   Flow\tnear weir ", "\x1c\x1d\x1e\x1f", "X\x0bY\x0cZ\rW"].map(String::from));
+        let mut texts: Vec<String> =
+            (0u8..128).map(|c| format!("A{}b {} {}Z", c as char, c as char, c as char)).collect();
+        texts.extend(
+            ["", " ", "\t\n\x0b\x0c\r ", "  Low   Flow\tnear weir ", "\x1c\x1d\x1e\x1f", "X\x0bY\x0cZ\rW"]
+                .map(String::from),
+        );
         let all: String = (0u8..128).map(char::from).collect();
         texts.push(all.clone());
         texts.push(all.chars().rev().collect());
@@ -1447,8 +1460,11 @@ mod tests {
                 }
                 let features = crate_digest(&spec.row_key, &exact);
                 enc.encoders[4].write(row, &mut exact, false);
-                let expected =
-                    RowDigests { row: crate_digest(&spec.row_key, &exact), features, loose: crate_digest(&spec.loose_key, &loose) };
+                let expected = RowDigests {
+                    row: crate_digest(&spec.row_key, &exact),
+                    features,
+                    loose: crate_digest(&spec.loose_key, &loose),
+                };
                 assert_eq!(all[row], expected, "row {row}");
                 assert_eq!(plain[row], expected.row, "row {row}");
             }
@@ -1468,15 +1484,23 @@ mod tests {
         let n = 3000;
         let long = "a note much longer than the thirty-two bytes of a copy window, ünïcode too";
         let columns: Vec<(&str, ArrayRef)> = vec![
-            ("f64", Arc::new((0..n).map(|i| (i % 13 != 0).then_some((i % 37) as f64 * 0.25)).collect::<Float64Array>())),
+            (
+                "f64",
+                Arc::new((0..n).map(|i| (i % 13 != 0).then_some((i % 37) as f64 * 0.25)).collect::<Float64Array>()),
+            ),
             ("f32", Arc::new((0..n).map(|i| (i % 5 != 1).then_some((i % 9) as f32 * 0.1)).collect::<Float32Array>())),
-            ("i64", Arc::new((0..n).map(|i| (i % 17 != 2).then_some(i as i64 * 7919 - 40_000)).collect::<Int64Array>())),
+            (
+                "i64",
+                Arc::new((0..n).map(|i| (i % 17 != 2).then_some(i as i64 * 7919 - 40_000)).collect::<Int64Array>()),
+            ),
             ("u64", Arc::new((0..n).map(|i| Some(u64::MAX - (i % 4) as u64)).collect::<UInt64Array>())),
             ("date", Arc::new((0..n).map(|i| (i % 7 != 3).then_some(i as i32 - 1500)).collect::<Date32Array>())),
             (
                 "text",
                 Arc::new(
-                    (0..n).map(|i| (i % 11 != 4).then(|| if i % 3 == 0 { long.to_string() } else { format!("st-{i}") })).collect::<StringArray>(),
+                    (0..n)
+                        .map(|i| (i % 11 != 4).then(|| if i % 3 == 0 { long.to_string() } else { format!("st-{i}") }))
+                        .collect::<StringArray>(),
                 ),
             ),
             (
@@ -1488,11 +1512,20 @@ mod tests {
                         .with_timezone("+00:00"),
                 ),
             ),
-            ("local", Arc::new((0..n).map(|i| Some(-86_400_000 + i as i64 * 1_001)).collect::<TimestampMillisecondArray>())),
+            (
+                "local",
+                Arc::new((0..n).map(|i| Some(-86_400_000 + i as i64 * 1_001)).collect::<TimestampMillisecondArray>()),
+            ),
             ("flag", Arc::new((0..n).map(|i| (i % 6 != 0).then_some(i % 4 == 1)).collect::<BooleanArray>())),
             (
                 "amount",
-                Arc::new((0..n).map(|i| Some(i as i128 * 125 - 9000)).collect::<Decimal128Array>().with_precision_and_scale(12, 2).unwrap()),
+                Arc::new(
+                    (0..n)
+                        .map(|i| Some(i as i128 * 125 - 9000))
+                        .collect::<Decimal128Array>()
+                        .with_precision_and_scale(12, 2)
+                        .unwrap(),
+                ),
             ),
             ("bytes", Arc::new((0..n).map(|i| (i % 8 != 7).then(|| vec![i as u8; i % 40])).collect::<BinaryArray>())),
         ];
@@ -1625,7 +1658,8 @@ mod tests {
         for n in [0u32, 1, 300, 70_000] {
             let mut digests: Vec<RowDigest> = (0..n)
                 .map(|i| {
-                    let mut d: RowDigest = blake3::hash(&i.to_le_bytes()).as_bytes()[..16].try_into().expect("16 bytes");
+                    let mut d: RowDigest =
+                        blake3::hash(&i.to_le_bytes()).as_bytes()[..16].try_into().expect("16 bytes");
                     if i % 4 == 0 {
                         d[0] = 200;
                     }

@@ -26,9 +26,8 @@ const LANES: usize = 16;
 const CHUNK_LEN: usize = 1024;
 const BLOCK_LEN: usize = 64;
 
-const IV: [u32; 8] = [
-    0x6A09_E667, 0xBB67_AE85, 0x3C6E_F372, 0xA54F_F53A, 0x510E_527F, 0x9B05_688C, 0x1F83_D9AB, 0x5BE0_CD19,
-];
+const IV: [u32; 8] =
+    [0x6A09_E667, 0xBB67_AE85, 0x3C6E_F372, 0xA54F_F53A, 0x510E_527F, 0x9B05_688C, 0x1F83_D9AB, 0x5BE0_CD19];
 const CHUNK_START: u32 = 1;
 const CHUNK_END: u32 = 2;
 const ROOT: u32 = 8;
@@ -283,8 +282,10 @@ mod avx512 {
             // Lanes whose message has this block; the others keep their
             // chaining value (and their stale block is never used).
             let active = _mm512_cmpgt_epu32_mask(blocks_v, step_v);
-            let block_len =
-                _mm512_min_epu32(_mm512_sub_epi32(lens_v, _mm512_set1_epi32((step * BLOCK_LEN) as i32)), _mm512_set1_epi32(BLOCK_LEN as i32));
+            let block_len = _mm512_min_epu32(
+                _mm512_sub_epi32(lens_v, _mm512_set1_epi32((step * BLOCK_LEN) as i32)),
+                _mm512_set1_epi32(BLOCK_LEN as i32),
+            );
             let base = _mm512_set1_epi32((KEYED_HASH | if step == 0 { CHUNK_START } else { 0 }) as i32);
             let last = _mm512_cmpeq_epu32_mask(blocks_v, _mm512_set1_epi32(step as i32 + 1));
             let flags = _mm512_mask_or_epi32(base, last, base, _mm512_set1_epi32((CHUNK_END | ROOT) as i32));
@@ -351,10 +352,22 @@ mod avx512 {
     fn compress(cv: &[__m512i; 8], m: &[__m512i; 16], block_len: __m512i, flags: __m512i) -> [__m512i; 8] {
         let zero = _mm512_setzero_si512();
         let mut v = [
-            cv[0], cv[1], cv[2], cv[3], cv[4], cv[5], cv[6], cv[7],
-            _mm512_set1_epi32(IV[0] as i32), _mm512_set1_epi32(IV[1] as i32),
-            _mm512_set1_epi32(IV[2] as i32), _mm512_set1_epi32(IV[3] as i32),
-            zero, zero, block_len, flags,
+            cv[0],
+            cv[1],
+            cv[2],
+            cv[3],
+            cv[4],
+            cv[5],
+            cv[6],
+            cv[7],
+            _mm512_set1_epi32(IV[0] as i32),
+            _mm512_set1_epi32(IV[1] as i32),
+            _mm512_set1_epi32(IV[2] as i32),
+            _mm512_set1_epi32(IV[3] as i32),
+            zero,
+            zero,
+            block_len,
+            flags,
         ];
         // Seven rounds written out, so that every message index is a
         // constant and the message stays in registers.

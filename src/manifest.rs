@@ -378,7 +378,9 @@ impl Manifest {
     pub fn to_text(&self) -> String {
         let mut body = self.clone();
         body.checksum = None;
-        let mut text = String::from("# cleave split manifest: edit nothing; the last line is a checksum of every byte above it.\n");
+        let mut text = String::from(
+            "# cleave split manifest: edit nothing; the last line is a checksum of every byte above it.\n",
+        );
         let yaml = serde_norway::to_string(&body).expect("manifest types serialise");
         for line in yaml.lines() {
             text.push_str(&quote_dates(line));
@@ -499,7 +501,8 @@ pub fn load(path: &Path) -> Result<LoadedManifest> {
         .ok_or_else(|| manifest_err(&path, "does not end with a `checksum: HEX` line"))?
         .to_ascii_lowercase();
     let computed = blake3::hash(text[..body_end].as_bytes()).to_hex().to_string();
-    let manifest: Manifest = serde_norway::from_str(text).map_err(|e| manifest_err(&path, format!("cannot be parsed: {e}")))?;
+    let manifest: Manifest =
+        serde_norway::from_str(text).map_err(|e| manifest_err(&path, format!("cannot be parsed: {e}")))?;
     if manifest.format_version != FORMAT_VERSION {
         return Err(manifest_err(
             &path,

@@ -231,7 +231,13 @@ fn auc_binary(scores: &[(f64, bool)]) -> Option<f64> {
 ///
 /// # Errors
 /// When the metric is undefined there (r2 with constant labels, auc with one class).
-pub fn metric_value(metric: Metric, truth: &Truth, preds: &Predictions, positive: Option<u32>, idx: &[u32]) -> Option<f64> {
+pub fn metric_value(
+    metric: Metric,
+    truth: &Truth,
+    preds: &Predictions,
+    positive: Option<u32>,
+    idx: &[u32],
+) -> Option<f64> {
     let n = idx.len() as f64;
     match (truth, preds) {
         (Truth::Numbers(y), Predictions::Numbers(p)) => {
@@ -255,7 +261,9 @@ pub fn metric_value(metric: Metric, truth: &Truth, preds: &Predictions, positive
         (Truth::Classes { names, y }, p) => {
             let k = names.len();
             Some(match metric {
-                Metric::Accuracy => idx.iter().filter(|&&i| class_of(p, i as usize) == y[i as usize]).count() as f64 / n,
+                Metric::Accuracy => {
+                    idx.iter().filter(|&&i| class_of(p, i as usize) == y[i as usize]).count() as f64 / n
+                }
                 Metric::LogLoss => {
                     let Predictions::Probabilities { classes, p } = p else { return None };
                     idx.iter()
@@ -334,7 +342,13 @@ fn resample(rng: &mut SplitRng, n: usize, out: &mut Vec<u32>) {
 }
 
 /// A percentile bootstrap interval of `f` over `n` rows.
-pub fn bootstrap_interval(n: usize, resamples: usize, confidence: f64, seed: u64, f: impl Fn(&[u32]) -> Option<f64>) -> (f64, f64) {
+pub fn bootstrap_interval(
+    n: usize,
+    resamples: usize,
+    confidence: f64,
+    seed: u64,
+    f: impl Fn(&[u32]) -> Option<f64>,
+) -> (f64, f64) {
     let mut rng = SplitRng::with_context("cleave 2026-12-02 bootstrap interval v1", seed);
     let mut idx = Vec::with_capacity(n);
     let mut values = Vec::with_capacity(resamples);
@@ -391,7 +405,6 @@ pub fn optimism(
 
 // ---- loading the sealed labels and the predictions ----------------------------
 
-
 /// The sealed labels, in test-row order, and whether they are numbers.
 ///
 /// # Errors
@@ -438,7 +451,9 @@ pub fn load_truth(loaded: &LoadedManifest, metric: Option<Metric>) -> Result<(Tr
             numbers.extend_from_slice(f.as_primitive::<arrow_array::types::Float64Type>().values());
         } else {
             for i in 0..col.len() {
-                texts.push(arrow_cast::display::array_value_to_string(&col, i).map_err(|e| Error::Options(e.to_string()))?);
+                texts.push(
+                    arrow_cast::display::array_value_to_string(&col, i).map_err(|e| Error::Options(e.to_string()))?,
+                );
             }
         }
     }
@@ -486,11 +501,9 @@ pub fn positive_class(truth: &Truth, metric: Metric, given: Option<&str>) -> Res
             )))
         }
     };
-    names
-        .iter()
-        .position(|n| *n == pick)
-        .map(|i| Some(i as u32))
-        .ok_or_else(|| Error::Options(format!("--positive `{pick}` is not a class of the label ({})", names.join(", "))))
+    names.iter().position(|n| *n == pick).map(|i| Some(i as u32)).ok_or_else(|| {
+        Error::Options(format!("--positive `{pick}` is not a class of the label ({})", names.join(", ")))
+    })
 }
 
 /// Reads a predictions file and aligns it with the test rows by `row_id`.
@@ -557,8 +570,9 @@ pub fn load_predictions(
     let class_index: HashMap<&str, u32> = class_names.iter().enumerate().map(|(i, c)| (c.as_str(), i as u32)).collect();
     let mut batches = table.batches(None, false)?;
     while let Some(batch) = batches.next_batch()? {
-        let ids_col = arrow_cast::cast(batch.data.column_by_name(crate::split::ROW_ID).expect("checked"), &DataType::Utf8)
-            .map_err(|e| bad(e.to_string()))?;
+        let ids_col =
+            arrow_cast::cast(batch.data.column_by_name(crate::split::ROW_ID).expect("checked"), &DataType::Utf8)
+                .map_err(|e| bad(e.to_string()))?;
         let ids_col = ids_col.as_string::<i32>();
         let row_of = |i: usize| -> Result<usize> {
             if ids_col.is_null(i) {
@@ -566,7 +580,12 @@ pub fn load_predictions(
             }
             let id = ids_col.value(i);
             index.get(id).copied().ok_or_else(|| {
-                batch.error_at(path, i, crate::split::ROW_ID, format!("`{}` is not a row of the sealed test set", crate::value::shorten(id)))
+                batch.error_at(
+                    path,
+                    i,
+                    crate::split::ROW_ID,
+                    format!("`{}` is not a row of the sealed test set", crate::value::shorten(id)),
+                )
             })
         };
         let float_col = |name: &str| -> Result<arrow_array::ArrayRef> {
@@ -580,7 +599,12 @@ pub fn load_predictions(
         for i in 0..batch.data.num_rows() {
             let r = row_of(i)?;
             if seen[r] {
-                return Err(batch.error_at(path, i, crate::split::ROW_ID, format!("`{}` appears twice", ids_col.value(i))));
+                return Err(batch.error_at(
+                    path,
+                    i,
+                    crate::split::ROW_ID,
+                    format!("`{}` appears twice", ids_col.value(i)),
+                ));
             }
             seen[r] = true;
             rows.push(r);
@@ -617,7 +641,16 @@ pub fn load_predictions(
                     }
                     let text = arrow_cast::display::array_value_to_string(col, i).map_err(|e| bad(e.to_string()))?;
                     let c = class_index.get(text.as_str()).ok_or_else(|| {
-                        batch.error_at(path, i, "prediction", format!("`{}` is not a class of the label ({})", crate::value::shorten(&text), class_names.join(", ")))
+                        batch.error_at(
+                            path,
+                            i,
+                            "prediction",
+                            format!(
+                                "`{}` is not a class of the label ({})",
+                                crate::value::shorten(&text),
+                                class_names.join(", ")
+                            ),
+                        )
                     })?;
                     values[r] = *c as f64;
                 }
@@ -635,7 +668,8 @@ pub fn load_predictions(
                 }
             }
             Want::Columns => {
-                let cols: Vec<arrow_array::ArrayRef> = class_names.iter().map(|c| float_col(c)).collect::<Result<_>>()?;
+                let cols: Vec<arrow_array::ArrayRef> =
+                    class_names.iter().map(|c| float_col(c)).collect::<Result<_>>()?;
                 for (i, &r) in rows.iter().enumerate() {
                     let mut sum = 0.0;
                     for (c, col) in cols.iter().enumerate() {
@@ -648,7 +682,12 @@ pub fn load_predictions(
                         sum += p;
                     }
                     if (sum - 1.0).abs() > 1e-6 {
-                        return Err(batch.error_at(path, i, &class_names.join("+"), format!("probabilities sum to {sum}, not 1")));
+                        return Err(batch.error_at(
+                            path,
+                            i,
+                            &class_names.join("+"),
+                            format!("probabilities sum to {sum}, not 1"),
+                        ));
                     }
                 }
             }
@@ -656,10 +695,7 @@ pub fn load_predictions(
     }
     if let Some(r) = seen.iter().position(|s| !s) {
         let missing = seen.iter().filter(|s| !**s).count();
-        return Err(bad(format!(
-            "has no prediction for {missing} test row(s), the first with row_id `{}`",
-            ids[r]
-        )));
+        return Err(bad(format!("has no prediction for {missing} test row(s), the first with row_id `{}`", ids[r])));
     }
     Ok(match want {
         Want::Numbers => Predictions::Numbers(values),
@@ -792,7 +828,9 @@ mod tests {
         for r in 0..reps {
             let losses: Vec<Vec<f64>> =
                 (0..2).map(|_| (0..n).map(|_| 5.0 + (n as f64).sqrt() * normal(&mut rng)).collect()).collect();
-            let mean = |j: usize, idx: &[u32]| Some(idx.iter().map(|&i| losses[j][i as usize]).sum::<f64>() / idx.len() as f64);
+            let mean = |j: usize, idx: &[u32]| {
+                Some(idx.iter().map(|&i| losses[j][i as usize]).sum::<f64>() / idx.len() as f64)
+            };
             let full: Vec<f64> = (0..2).map(|j| mean(j, &all(n)).unwrap()).collect();
             let best = full[0].min(full[1]);
             let o = optimism(n, &full, false, 400, r as u64, mean);

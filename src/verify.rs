@@ -65,7 +65,10 @@ pub fn check_key(loaded: &manifest::LoadedManifest, key: Option<&DigestKey>) -> 
         }),
         (Some(k), true, Some(fp)) if &k.fingerprint() != fp => Err(crate::Error::Manifest {
             path: loaded.path.clone(),
-            what: format!("was sealed under the key with fingerprint {fp}; the key given has fingerprint {}", k.fingerprint()),
+            what: format!(
+                "was sealed under the key with fingerprint {fp}; the key given has fingerprint {}",
+                k.fingerprint()
+            ),
         }),
         _ => Ok(()),
     }
@@ -150,12 +153,18 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
     // side by side.
     let (hashed, (mut contents, seals)) = rayon::join(
         || {
-            let files: Vec<&str> = parts.iter().map(|p| p.file.as_str()).chain(m.handoff.as_ref().map(|h| h.file.as_str())).collect();
+            let files: Vec<&str> =
+                parts.iter().map(|p| p.file.as_str()).chain(m.handoff.as_ref().map(|h| h.file.as_str())).collect();
             files.par_iter().map(|f| io::hash_file(&loaded.file(f)).ok()).collect::<Vec<_>>()
         },
         || {
             rayon::join(
-                || parts.iter().map(|p| (redigest && (deep || p.name == Partition::Test)).then(|| digest(p))).collect::<Vec<_>>(),
+                || {
+                    parts
+                        .iter()
+                        .map(|p| (redigest && (deep || p.name == Partition::Test)).then(|| digest(p)))
+                        .collect::<Vec<_>>()
+                },
                 || seal_files.par_iter().map(|sf| read_seal_file(&loaded.file(&sf.file))).collect::<Vec<_>>(),
             )
         },
@@ -183,7 +192,10 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
             Ok(Content { mut rows, all, groups, folds }) => {
                 rows_checked += rows.len() as u64;
                 if fold_column(part).is_some() && !part.folds.is_empty() && folds != part.folds {
-                    problem(&part.file, format!("its fold column counts {folds:?} rows per fold, the seal says {:?}", part.folds));
+                    problem(
+                        &part.file,
+                        format!("its fold column counts {folds:?} rows per fold, the seal says {:?}", part.folds),
+                    );
                 }
                 if rows.len() as u64 != part.rows {
                     problem(&part.file, format!("has {} rows, the seal says {}", rows.len(), part.rows));
@@ -223,7 +235,9 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
             read.map(|(summary, bytes)| {
                 let checked = seal::check_order(&bytes);
                 let matches = match (&test_digests, &checked) {
-                    (Some((_, groups)), Ok(_)) if sf.kind == SealKind::Groups => seal::records(&bytes).eq(groups.iter().copied()),
+                    (Some((_, groups)), Ok(_)) if sf.kind == SealKind::Groups => {
+                        seal::records(&bytes).eq(groups.iter().copied())
+                    }
                     (Some((test, _)), Ok(_)) => seal_matches(&bytes, test, sf.kind),
                     _ => true,
                 };

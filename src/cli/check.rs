@@ -155,9 +155,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
             let count: u64 = per.iter().map(|(_, f)| f.count).sum();
             let examples: Vec<Value> = per
                 .iter()
-                .flat_map(|(r, f)| {
-                    f.examples.iter().map(move |e| example_json(e, Some(&r.file)))
-                })
+                .flat_map(|(r, f)| f.examples.iter().map(move |e| example_json(e, Some(&r.file))))
                 .take(args.max_examples)
                 .collect();
             let mut v = json!({"count": count, "examples": examples});

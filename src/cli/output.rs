@@ -48,17 +48,13 @@ pub fn error(e: &anyhow::Error) {
 
 /// Whether an error is stdout closed by the reader (`cleave ... | head`).
 pub fn is_broken_pipe(e: &anyhow::Error) -> bool {
-    e.chain().any(|c| {
-        c.downcast_ref::<std::io::Error>().is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe)
-    })
+    e.chain().any(|c| c.downcast_ref::<std::io::Error>().is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe))
 }
 
 /// Control characters escaped, so that a cell value or a path cannot move
 /// the terminal's cursor.
 pub fn sanitize(text: &str) -> String {
-    text.chars()
-        .flat_map(|c| if c.is_control() { c.escape_default().collect::<Vec<_>>() } else { vec![c] })
-        .collect()
+    text.chars().flat_map(|c| if c.is_control() { c.escape_default().collect::<Vec<_>>() } else { vec![c] }).collect()
 }
 
 /// A share as a percentage with one decimal.

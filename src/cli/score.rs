@@ -93,10 +93,8 @@ fn best_of(dir: &Path, ledger: &Ledger, truth: &Truth, metric: Metric) -> anyhow
     }
     let n = truth.len();
     let all: Vec<u32> = (0..n as u32).collect();
-    let full: Vec<f64> = preds
-        .iter()
-        .map(|(p, pos)| score::metric_value(metric, truth, p, *pos, &all).unwrap_or(f64::NAN))
-        .collect();
+    let full: Vec<f64> =
+        preds.iter().map(|(p, pos)| score::metric_value(metric, truth, p, *pos, &all).unwrap_or(f64::NAN)).collect();
     let higher = metric.higher_is_better();
     let mut best = 0;
     for j in 1..full.len() {
@@ -156,17 +154,19 @@ pub fn run_score(args: ScoreArgs) -> anyhow::Result<Outcome> {
     let preds = score::load_predictions(&args.predictions, args.format, &truth, metric, positive, &ids)?;
     let n = truth.len();
     let all: Vec<u32> = (0..n as u32).collect();
-    let value = score::metric_value(metric, &truth, &preds, positive, &all)
-        .ok_or_else(|| anyhow::anyhow!("{} is undefined on this test set (one class only, or constant labels)", metric.name()))?;
+    let value = score::metric_value(metric, &truth, &preds, positive, &all).ok_or_else(|| {
+        anyhow::anyhow!("{} is undefined on this test set (one class only, or constant labels)", metric.name())
+    })?;
     let (lo, hi) = score::bootstrap_interval(n, args.resamples as usize, args.confidence, args.seed, |idx| {
         score::metric_value(metric, &truth, &preds, positive, idx)
     });
     let seq = ledger.entries.len() as u64 + 1;
     let stored = format!("{}/{seq:06}.bin", ledger::SCORES_DIR);
     let stored_bytes = score::encode_predictions(&preds);
-    let name = args.name.clone().unwrap_or_else(|| {
-        args.predictions.file_name().map(|f| f.to_string_lossy().into_owned()).unwrap_or_default()
-    });
+    let name = args
+        .name
+        .clone()
+        .unwrap_or_else(|| args.predictions.file_name().map(|f| f.to_string_lossy().into_owned()).unwrap_or_default());
     let body = EntryBody {
         seq,
         time: creation_time()?,
@@ -219,7 +219,9 @@ pub fn run_score(args: ScoreArgs) -> anyhow::Result<Outcome> {
             args.resamples,
             args.seed
         );
-        t.push_str(&format!("  this test set has now been scored {times} time(s); every scoring spends some of its trust\n"));
+        t.push_str(&format!(
+            "  this test set has now been scored {times} time(s); every scoring spends some of its trust\n"
+        ));
         if let Some(b) = &best {
             t.push_str(&format!(
                 "  best of {} by {}: `{}` {:.6}; were they of equal merit, picking the best would flatter it by about {:.6}: expect {:.6}\n",
@@ -246,7 +248,9 @@ pub fn run_ledger(args: LedgerArgs) -> anyhow::Result<Outcome> {
     let pin = args
         .expect_head
         .as_deref()
-        .map(|h| manifest::parse_pin(h).map_err(|_| anyhow::anyhow!("--expect-head `{h}` is not a 64-digit BLAKE3 hash")))
+        .map(|h| {
+            manifest::parse_pin(h).map_err(|_| anyhow::anyhow!("--expect-head `{h}` is not a 64-digit BLAKE3 hash"))
+        })
         .transpose()?;
     let loaded = manifest::load(&args.dir)?;
     let ledger = ledger::read(&loaded.dir, pin.as_deref())?;
@@ -276,13 +280,20 @@ pub fn run_ledger(args: LedgerArgs) -> anyhow::Result<Outcome> {
             })).collect::<Vec<_>>(),
             "problems": ledger.problems,
         });
-        if let Some((_, b)) = bests.iter().find(|(m, _)| Some(m.as_str()) == ledger.entries.last().map(|e| e.body.metric.as_str())) {
+        if let Some((_, b)) =
+            bests.iter().find(|(m, _)| Some(m.as_str()) == ledger.entries.last().map(|e| e.body.metric.as_str()))
+        {
             doc["best"] = b.json();
         }
-        doc["best_by_metric"] = json!(bests.iter().map(|(m, b)| (m.clone(), b.json())).collect::<serde_json::Map<_, _>>());
+        doc["best_by_metric"] =
+            json!(bests.iter().map(|(m, b)| (m.clone(), b.json())).collect::<serde_json::Map<_, _>>());
         output::json(&doc)?;
     } else {
-        let mut t = format!("ledger of `{}`: scored {} time(s)\n", output::sanitize(&args.dir.display().to_string()), ledger.entries.len());
+        let mut t = format!(
+            "ledger of `{}`: scored {} time(s)\n",
+            output::sanitize(&args.dir.display().to_string()),
+            ledger.entries.len()
+        );
         for e in &ledger.entries {
             t.push_str(&format!(
                 "  {:>3}  {}  {:<24} {:<9} {:.6}  [{:.6}, {:.6}]  {}\n",

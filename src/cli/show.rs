@@ -84,7 +84,12 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         }
     }
     if let Some(order) = &m.order {
-        t.push_str(&format!("\ntime order by `{}` ({:?}), gap {}\n", order.column, order.kind, o.gap.as_deref().unwrap_or("none")));
+        t.push_str(&format!(
+            "\ntime order by `{}` ({:?}), gap {}\n",
+            order.column,
+            order.kind,
+            o.gap.as_deref().unwrap_or("none")
+        ));
         for p in &m.partitions {
             if let Some(r) = &p.time {
                 t.push_str(&format!(
@@ -93,9 +98,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
                     r.first,
                     r.last,
                     p.dropped_by_gap.unwrap_or(0),
-                    p.dropped_by_group_rule
-                        .map(|n| format!(", by the group rule: {n}"))
-                        .unwrap_or_default()
+                    p.dropped_by_group_rule.map(|n| format!(", by the group rule: {n}")).unwrap_or_default()
                 ));
             }
         }
@@ -110,7 +113,10 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         } else {
             for b in &f.blocks {
                 let role = if b.block == 0 { "trains only".to_string() } else { format!("validates fold {}", b.block) };
-                t.push_str(&format!("  block {:<3} {:>8} rows  {} .. {}  {role}\n", b.block, b.rows, b.time.first, b.time.last));
+                t.push_str(&format!(
+                    "  block {:<3} {:>8} rows  {} .. {}  {role}\n",
+                    b.block, b.rows, b.time.first, b.time.last
+                ));
             }
         }
         for (stratum, sizes) in &f.strata {

@@ -155,7 +155,12 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         ));
     }
     if let Some(f) = &m.folds {
-        text.push_str(&format!("  {} folds ({}) in column `{}` of the development partitions\n", f.k, f.kind.name(), f.column));
+        text.push_str(&format!(
+            "  {} folds ({}) in column `{}` of the development partitions\n",
+            f.k,
+            f.kind.name(),
+            f.column
+        ));
     }
     text.push_str(&format!("sealed the test partition: {}\n", crate::manifest::FILE_NAME));
     text.push_str(&format!("seal identity (manifest checksum): {}\n", outcome.manifest_checksum));

@@ -58,14 +58,22 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
                     (true, _) if args.shareable => format!("{rows} rows of every partition but test re-digested"),
                     (true, _) => format!("{rows} rows of every partition re-digested"),
                     (false, 0) => "checksums only: a shareable copy holds no labelled test rows".to_string(),
-                    (false, 1) => format!("{rows} rows of the test partition re-digested; --deep re-digests every partition"),
-                    (false, n) => format!("{rows} rows of {n} partitions re-digested; --deep re-digests every partition"),
+                    (false, 1) => {
+                        format!("{rows} rows of the test partition re-digested; --deep re-digests every partition")
+                    }
+                    (false, n) => {
+                        format!("{rows} rows of {n} partitions re-digested; --deep re-digests every partition")
+                    }
                 }
             } else {
                 "checksums only: the seal is keyed; pass --digest-key to re-digest the rows".to_string()
             },
             report.manifest_checksum,
-            if pin.is_some() { " (as pinned)" } else { " (not pinned: pass --expect-manifest to rule out a re-sealed folder)" }
+            if pin.is_some() {
+                " (as pinned)"
+            } else {
+                " (not pinned: pass --expect-manifest to rule out a re-sealed folder)"
+            }
         ))?;
     } else {
         let mut text = format!("differs: `{shown}` ({} problems)\n", report.problems.len());

@@ -29,8 +29,7 @@ use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
 use arrow_array::builder::{
-    BooleanBuilder, Date32Builder, Float64Builder, Int64Builder, StringBuilder,
-    TimestampMicrosecondBuilder,
+    BooleanBuilder, Date32Builder, Float64Builder, Int64Builder, StringBuilder, TimestampMicrosecondBuilder,
 };
 use arrow_array::{ArrayRef, RecordBatch};
 use arrow_schema::{DataType, Field, Schema, SchemaRef, TimeUnit};
@@ -191,32 +190,30 @@ impl<R: Read> Tokenizer<R> {
                         }
                     }
                 }
-                _ => {
-                    loop {
-                        match self.peek()? {
-                            None => {
-                                rec.ends.push(rec.text.len());
-                                return Ok(true);
-                            }
-                            Some(b',') => {
-                                self.bump();
-                                rec.ends.push(rec.text.len());
-                                break;
-                            }
-                            Some(b'\n') | Some(b'\r') => {
-                                rec.ends.push(rec.text.len());
-                                return self.end_of_record(rec.line);
-                            }
-                            Some(b'"') => {
-                                return Err(self.err(self.line, "quote inside an unquoted field"));
-                            }
-                            Some(_) => {
-                                let b = self.bump();
-                                rec.text.push(b);
-                            }
+                _ => loop {
+                    match self.peek()? {
+                        None => {
+                            rec.ends.push(rec.text.len());
+                            return Ok(true);
+                        }
+                        Some(b',') => {
+                            self.bump();
+                            rec.ends.push(rec.text.len());
+                            break;
+                        }
+                        Some(b'\n') | Some(b'\r') => {
+                            rec.ends.push(rec.text.len());
+                            return self.end_of_record(rec.line);
+                        }
+                        Some(b'"') => {
+                            return Err(self.err(self.line, "quote inside an unquoted field"));
+                        }
+                        Some(_) => {
+                            let b = self.bump();
+                            rec.text.push(b);
                         }
                     }
-                }
+                },
             }
         }
     }
@@ -261,7 +258,10 @@ fn check_width(tok: &Tokenizer<impl Read>, rec: &Record, width: usize) -> Result
     // A blank line in a one-column file is a row holding null.
     Err(tok.err(
         rec.line,
-        format!("{} fields, the header has {width}", if rec.text.is_empty() && rec.ends.len() == 1 { 0 } else { rec.ends.len() }),
+        format!(
+            "{} fields, the header has {width}",
+            if rec.text.is_empty() && rec.ends.len() == 1 { 0 } else { rec.ends.len() }
+        ),
     ))
 }
 
@@ -387,13 +387,8 @@ impl KeptText {
         let (bytes, ends) = &self.columns[c];
         let start = if lo == 0 { 0 } else { ends[lo - 1] };
         let values = bytes[start as usize..ends[hi - 1] as usize].to_vec();
-        let offsets: Vec<i32> =
-            std::iter::once(0).chain(ends[lo..hi].iter().map(|&e| (e - start) as i32)).collect();
-        arrow_array::StringArray::new(
-            arrow_buffer::OffsetBuffer::new(offsets.into()),
-            values.into(),
-            None,
-        )
+        let offsets: Vec<i32> = std::iter::once(0).chain(ends[lo..hi].iter().map(|&e| (e - start) as i32)).collect();
+        arrow_array::StringArray::new(arrow_buffer::OffsetBuffer::new(offsets.into()), values.into(), None)
     }
 }
 
@@ -451,8 +446,7 @@ pub fn infer_keeping(
 
 /// The Arrow schema cleave uses for CSV columns of the given types.
 pub fn schema_for(names: &[String], types: &[ColumnType]) -> SchemaRef {
-    let fields: Vec<Field> =
-        names.iter().zip(types).map(|(n, t)| Field::new(n, t.csv_data_type(), true)).collect();
+    let fields: Vec<Field> = names.iter().zip(types).map(|(n, t)| Field::new(n, t.csv_data_type(), true)).collect();
     Arc::new(Schema::new(fields))
 }
 
@@ -702,9 +696,9 @@ impl ColumnBuilder {
             ColumnType::Float => ColumnBuilder::Float(Float64Builder::with_capacity(rows)),
             ColumnType::Boolean => ColumnBuilder::Boolean(BooleanBuilder::with_capacity(rows)),
             ColumnType::Date => ColumnBuilder::Date(Date32Builder::with_capacity(rows)),
-            ColumnType::Timestamp => ColumnBuilder::Timestamp(
-                TimestampMicrosecondBuilder::with_capacity(rows).with_timezone("UTC"),
-            ),
+            ColumnType::Timestamp => {
+                ColumnBuilder::Timestamp(TimestampMicrosecondBuilder::with_capacity(rows).with_timezone("UTC"))
+            }
             ColumnType::LocalTimestamp => {
                 ColumnBuilder::LocalTimestamp(TimestampMicrosecondBuilder::with_capacity(rows))
             }
@@ -731,9 +725,7 @@ impl ColumnBuilder {
             ColumnBuilder::Float(b) => b.append_value(value::parse_float(text).ok_or("a number")?),
             ColumnBuilder::Boolean(b) => b.append_value(value::parse_bool(text).ok_or("true or false")?),
             ColumnBuilder::Date(b) => b.append_value(value::parse_date(text).ok_or("an ISO 8601 date")?),
-            ColumnBuilder::Timestamp(b) => {
-                b.append_value(value::parse_timestamp(text).ok_or("an RFC 3339 timestamp")?)
-            }
+            ColumnBuilder::Timestamp(b) => b.append_value(value::parse_timestamp(text).ok_or("an RFC 3339 timestamp")?),
             ColumnBuilder::LocalTimestamp(b) => {
                 b.append_value(value::parse_local_timestamp(text).ok_or("a date and time")?)
             }

@@ -131,14 +131,11 @@ pub fn validate(path: &Path) -> Result<()> {
             return Err(Error::at_line(path, line_no, "is not a JSON object"));
         }
         let mut de = serde_json::Deserializer::from_str(text);
-        Strict
-            .deserialize(&mut de)
-            .and_then(|_| de.end())
-            .map_err(|e| {
-                let msg = e.to_string();
-                let msg = msg.rfind(" at line ").map_or(msg.as_str(), |p| &msg[..p]).to_string();
-                Error::at_line(path, line_no, format!("column {}: not valid JSON: {msg}", e.column()))
-            })?;
+        Strict.deserialize(&mut de).and_then(|_| de.end()).map_err(|e| {
+            let msg = e.to_string();
+            let msg = msg.rfind(" at line ").map_or(msg.as_str(), |p| &msg[..p]).to_string();
+            Error::at_line(path, line_no, format!("column {}: not valid JSON: {msg}", e.column()))
+        })?;
         if let Some(token) = oversized_integer(text) {
             return Err(Error::at_line(
                 path,

@@ -482,8 +482,8 @@ fn check_magic(path: &Path, format: Format, magic: &[u8]) -> Result<()> {
 fn infer_jsonl(path: &Path, hints: &TypeHints) -> Result<SchemaRef> {
     let format = Format::Jsonl;
     let mut file = BufReader::new(File::open(path).map_err(|e| Error::io(path, "cannot open", e))?);
-    let (inferred, _) =
-        arrow_json::reader::infer_json_schema_from_seekable(&mut file, None).map_err(|e| decode_err(path, format, e))?;
+    let (inferred, _) = arrow_json::reader::infer_json_schema_from_seekable(&mut file, None)
+        .map_err(|e| decode_err(path, format, e))?;
     file.rewind().map_err(|e| Error::io(path, "cannot read", e))?;
     if inferred.fields().is_empty() {
         return Err(Error::malformed(path, "no columns found"));
@@ -600,9 +600,13 @@ impl Batches {
         let (path, format) = (self.path.clone(), self.format);
         let next = guarded(&path, format, || match &mut self.inner {
             BatchSource::Csv(r) => Ok(r.next_batch()?.map(|(b, raw, lines)| (b, raw, Some(lines)))),
-            BatchSource::Parquet(r) => r.next().transpose().map(|b| b.map(|b| (b, None, None))).map_err(|e| decode_err(&path, format, e)),
+            BatchSource::Parquet(r) => {
+                r.next().transpose().map(|b| b.map(|b| (b, None, None))).map_err(|e| decode_err(&path, format, e))
+            }
             BatchSource::ParquetParallel(r) => Ok(r.next_batch()?.map(|b| (b, None, None))),
-            BatchSource::Ipc(r) => r.next().transpose().map(|b| b.map(|b| (b, None, None))).map_err(|e| decode_err(&path, format, e)),
+            BatchSource::Ipc(r) => {
+                r.next().transpose().map(|b| b.map(|b| (b, None, None))).map_err(|e| decode_err(&path, format, e))
+            }
             BatchSource::Json { reader, projection } => {
                 let batch = reader.next().transpose().map_err(|e| decode_err(&path, format, e))?;
                 Ok(match (batch, projection) {

@@ -42,7 +42,8 @@ pub fn parse_compression(text: &str) -> std::result::Result<Compression, String>
     use parquet::basic::{BrotliLevel, GzipLevel, ZstdLevel};
     let (name, level) = match text.split_once(':') {
         Some((name, level)) => {
-            let level = level.parse::<u32>().map_err(|_| format!("compression level `{level}` is not a whole number"))?;
+            let level =
+                level.parse::<u32>().map_err(|_| format!("compression level `{level}` is not a whole number"))?;
             (name, Some(level))
         }
         None => (text, None),
@@ -56,9 +57,15 @@ pub fn parse_compression(text: &str) -> std::result::Result<Compression, String>
         ("zstd", l) => {
             Compression::ZSTD(l.map_or(Ok(ZstdLevel::default()), |l| ZstdLevel::try_new(l as i32)).map_err(bad_level)?)
         }
-        ("brotli", l) => Compression::BROTLI(l.map_or(Ok(BrotliLevel::default()), BrotliLevel::try_new).map_err(bad_level)?),
+        ("brotli", l) => {
+            Compression::BROTLI(l.map_or(Ok(BrotliLevel::default()), BrotliLevel::try_new).map_err(bad_level)?)
+        }
         ("none" | "snappy" | "lz4", Some(_)) => return Err(format!("`{name}` takes no level")),
-        _ => return Err(format!("unknown compression `{text}` (none, snappy, lz4, gzip[:LEVEL], zstd[:LEVEL], brotli[:LEVEL])")),
+        _ => {
+            return Err(format!(
+                "unknown compression `{text}` (none, snappy, lz4, gzip[:LEVEL], zstd[:LEVEL], brotli[:LEVEL])"
+            ))
+        }
     };
     Ok(codec)
 }
@@ -120,7 +127,8 @@ impl PartitionWriter {
         compression: Option<Compression>,
     ) -> Result<Self> {
         let mut sink = create_sink(path)?;
-        let enc = |e: &dyn std::fmt::Display| Error::Encode { path: path.to_path_buf(), format, message: e.to_string() };
+        let enc =
+            |e: &dyn std::fmt::Display| Error::Encode { path: path.to_path_buf(), format, message: e.to_string() };
         let inner = match (format, csv_header) {
             (Format::Csv, Some(header)) => {
                 sink.write_all(header).map_err(|e| Error::io(path, "cannot write", e))?;
@@ -135,9 +143,8 @@ impl PartitionWriter {
                     .build(sink),
             ),
             (Format::Parquet, _) => {
-                let props = WriterProperties::builder()
-                    .set_compression(compression.unwrap_or(Compression::SNAPPY))
-                    .build();
+                let props =
+                    WriterProperties::builder().set_compression(compression.unwrap_or(Compression::SNAPPY)).build();
                 Inner::Parquet(ArrowWriter::try_new(sink, schema.clone(), Some(props)).map_err(|e| enc(&e))?)
             }
             (Format::Arrow, _) => {
@@ -229,11 +236,8 @@ pub fn write_streamed(path: &Path, fill: impl FnOnce(&mut dyn Write) -> std::io:
 
 /// Creates `path` (which must not exist) behind a hashing buffer.
 fn create_sink(path: &Path) -> Result<Sink> {
-    let file = File::options()
-        .write(true)
-        .create_new(true)
-        .open(path)
-        .map_err(|e| Error::io(path, "cannot create", e))?;
+    let file =
+        File::options().write(true).create_new(true).open(path).map_err(|e| Error::io(path, "cannot create", e))?;
     Ok(BufWriter::with_capacity(1 << 20, Hashing { inner: file, hasher: blake3::Hasher::new(), bytes: 0 }))
 }
 

@@ -295,7 +295,12 @@ mod tests {
         for &c in classes {
             sizes[c as usize] += 1;
         }
-        Strata { row_stratum: classes.to_vec(), labels: (0..n).map(|i| i.to_string()).collect(), sizes, columns: vec![] }
+        Strata {
+            row_stratum: classes.to_vec(),
+            labels: (0..n).map(|i| i.to_string()).collect(),
+            sizes,
+            columns: vec![],
+        }
     }
 
     fn sizes(fold: &[u32], k: u32) -> Vec<u64> {

@@ -37,8 +37,9 @@ use crate::digest::{self, DigestBuckets, DigestSpec, GroupSpec, RowDigest, RowDi
 use crate::error::{Error, Result};
 use crate::io::{self, ColumnType, Format, PartitionWriter, Table, TypeHints};
 use crate::manifest::{
-    self, BlockRecord, ColumnRecord, DigestRecord, FoldRecord, GroupRecord, HandoffRecord, Manifest, OrderRecord, PartitionRecord,
-    SealFile, SealKind, SealRecord, ShortStratum, Source, SplitOptionsRecord, StrataRecord, TimeRange, Tool,
+    self, BlockRecord, ColumnRecord, DigestRecord, FoldRecord, GroupRecord, HandoffRecord, Manifest, OrderRecord,
+    PartitionRecord, SealFile, SealKind, SealRecord, ShortStratum, Source, SplitOptionsRecord, StrataRecord, TimeRange,
+    Tool,
 };
 use crate::seal;
 use crate::split::memo::DictionaryMemo;
@@ -254,7 +255,9 @@ fn check_combinations(cfg: &SplitConfig) -> Result<()> {
         return refuse("--stratify with --order-by cannot be honoured: time order alone decides the partitions");
     }
     if cfg.stable && !cfg.stratify.is_empty() {
-        return refuse("--stratify with --stable cannot be honoured: a stable split reads each row's partition off its own hash");
+        return refuse(
+            "--stratify with --stable cannot be honoured: a stable split reads each row's partition off its own hash",
+        );
     }
     if cfg.stable && cfg.order_by.is_some() {
         return refuse("--stable with --order-by cannot be honoured: time order, not a hash, decides the partitions");
@@ -402,10 +405,7 @@ fn first_pass(
     }
     if let Some(i) = group_seen.iter().position(|s| !s) {
         if group_seen.iter().all(|s| !s) {
-            return Err(Error::Options(format!(
-                "--group: `{}` is entirely null, so it names no groups",
-                group[i]
-            )));
+            return Err(Error::Options(format!("--group: `{}` is entirely null, so it names no groups", group[i])));
         }
     }
     let strata = match strata_builder {
@@ -468,7 +468,8 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let source_hash = io::HashingThread::start(&cfg.input);
     // CSV: the type-inference pass also keeps the columns pass one needs,
     // so the file is read twice in all, not three times.
-    let mut pass_one_columns: Vec<String> = cfg.stratify.iter().chain(&cfg.group).chain(&cfg.order_by).cloned().collect();
+    let mut pass_one_columns: Vec<String> =
+        cfg.stratify.iter().chain(&cfg.group).chain(&cfg.order_by).cloned().collect();
     pass_one_columns.sort();
     pass_one_columns.dedup();
     let keep = (format == Format::Csv && !(cfg.stable && cfg.group.is_empty())).then_some(pass_one_columns.as_slice());
@@ -574,7 +575,11 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
                     strata.sizes[s],
                     missing.iter().map(|p| p.name()).collect::<Vec<_>>().join(", ")
                 ));
-                short.push(ShortStratum { stratum: strata.labels[s].clone(), rows: strata.sizes[s], missing_from: missing });
+                short.push(ShortStratum {
+                    stratum: strata.labels[s].clone(),
+                    rows: strata.sizes[s],
+                    missing_from: missing,
+                });
             }
         }
     }
@@ -604,7 +609,13 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             }
         });
         let target_schema = if has_folds { &fold_schema } else { &schema };
-        let w = PartitionWriter::create(&staging.path.join(&file), output_format, target_schema, header.as_deref(), compression)?;
+        let w = PartitionWriter::create(
+            &staging.path.join(&file),
+            output_format,
+            target_schema,
+            header.as_deref(),
+            compression,
+        )?;
         writers.push((file, w.spawn()));
     }
     // The evaluator hand-off: test rows without labels, with a row_id.
@@ -739,7 +750,8 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
                         Some(values) => {
                             let mut columns = part.columns().to_vec();
                             columns.push(Arc::new(Int64Array::from(values)));
-                            RecordBatch::try_new(fold_schema, columns).map_err(|e| Error::malformed(&input, e.to_string()))
+                            RecordBatch::try_new(fold_schema, columns)
+                                .map_err(|e| Error::malformed(&input, e.to_string()))
                         }
                     }
                 })?;
@@ -845,9 +857,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
             .enumerate()
             .map(|(s, c)| {
                 let n = strata.sizes[s] as f64;
-                let dev = (0..k)
-                    .map(|p| (c[p] as f64 / n - cfg.ratios.share(p)).abs() * 100.0)
-                    .fold(0.0f64, f64::max);
+                let dev = (0..k).map(|p| (c[p] as f64 / n - cfg.ratios.share(p)).abs() * 100.0).fold(0.0f64, f64::max);
                 (strata.labels[s].clone(), format!("{dev:.2}"))
             })
             .collect()
@@ -998,7 +1008,11 @@ fn rows_shared_with_test(digests: &[DigestBuckets]) -> u64 {
 ///
 /// # Errors
 /// Disk failures.
-pub fn write_seal(dir: &Path, test: &[(RowDigests, u64)], groups: Option<&[seal::SealRecord]>) -> Result<Vec<SealFile>> {
+pub fn write_seal(
+    dir: &Path,
+    test: &[(RowDigests, u64)],
+    groups: Option<&[seal::SealRecord]>,
+) -> Result<Vec<SealFile>> {
     use rayon::prelude::*;
     let mut kinds = vec![SealKind::Rows, SealKind::Features, SealKind::Loose];
     if groups.is_some() {
@@ -1043,9 +1057,7 @@ pub fn kind_digest(d: &RowDigests, kind: SealKind) -> crate::digest::RowDigest {
 }
 
 fn sync_dir(path: &Path) -> Result<()> {
-    std::fs::File::open(path)
-        .and_then(|f| f.sync_all())
-        .map_err(|e| Error::io(path, "cannot sync", e))
+    std::fs::File::open(path).and_then(|f| f.sync_all()).map_err(|e| Error::io(path, "cannot sync", e))
 }
 
 /// Renames the staging folder into place, replacing an existing folder only

@@ -85,7 +85,9 @@ impl Ratios {
             let v = parse_decimal(part)
                 .ok_or_else(|| Error::Options(format!("--ratios: the {p} share `{part}` is not a number")))?;
             if v.0 == 0 {
-                return Err(Error::Options(format!("--ratios: the {p} share is zero; leave the partition out instead")));
+                return Err(Error::Options(format!(
+                    "--ratios: the {p} share is zero; leave the partition out instead"
+                )));
             }
             parsed.push(v);
         }

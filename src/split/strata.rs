@@ -35,7 +35,13 @@ enum Column {
         /// until met), when the column comes as one.
         memo: DictionaryMemo<u32>,
     },
-    Numeric { name: String, values: Vec<Option<f64>>, distinct: HashSet<u64>, keys: HashMap<Vec<u8>, (u32, String)>, codes: Vec<u32> },
+    Numeric {
+        name: String,
+        values: Vec<Option<f64>>,
+        distinct: HashSet<u64>,
+        keys: HashMap<Vec<u8>, (u32, String)>,
+        codes: Vec<u32>,
+    },
 }
 
 /// Collects stratum values row by row (pass one of a split).
@@ -123,7 +129,8 @@ impl StrataBuilder {
         for (col, array) in self.columns.iter_mut().zip(arrays) {
             match col {
                 Column::Categorical { name, ids, labels, codes, memo } => {
-                    if let Some(dict) = array.as_dictionary_opt::<Int32Type>().filter(|d| d.values().null_count() == 0) {
+                    if let Some(dict) = array.as_dictionary_opt::<Int32Type>().filter(|d| d.values().null_count() == 0)
+                    {
                         // Each distinct value is encoded and looked up once.
                         let values = dict.values();
                         memo.refresh(values, u32::MAX);
@@ -139,10 +146,15 @@ impl StrataBuilder {
                                 } else {
                                     encoder.write(slot, &mut key);
                                 }
-                                memo.slots[slot] = intern(ids, &key, |&id| id, |id| {
-                                    labels.push(display(array, row));
-                                    id
-                                });
+                                memo.slots[slot] = intern(
+                                    ids,
+                                    &key,
+                                    |&id| id,
+                                    |id| {
+                                        labels.push(display(array, row));
+                                        id
+                                    },
+                                );
                             }
                             codes.push(memo.slots[slot]);
                         }
@@ -153,10 +165,15 @@ impl StrataBuilder {
                     for row in 0..array.len() {
                         key.clear();
                         encoder.write(row, &mut key);
-                        codes.push(intern(ids, &key, |&id| id, |id| {
-                            labels.push(display(array, row));
-                            id
-                        }));
+                        codes.push(intern(
+                            ids,
+                            &key,
+                            |&id| id,
+                            |id| {
+                                labels.push(display(array, row));
+                                id
+                            },
+                        ));
                     }
                 }
                 Column::Numeric { name, values, distinct, keys, codes } => {
@@ -312,10 +329,8 @@ fn combine(per_column: Vec<ColumnCodes>) -> Strata {
     // Distinct rank tuples, numbered in sorted (lexicographic) order.
     let (sorted_tuples, row_stratum, sizes) = number_tuples(&per_column, rows);
     // Labels: rank -> code per column, then the code's label.
-    let code_of_rank: Vec<HashMap<u32, u32>> = per_column
-        .iter()
-        .map(|c| c.1.iter().enumerate().map(|(code, &rank)| (rank, code as u32)).collect())
-        .collect();
+    let code_of_rank: Vec<HashMap<u32, u32>> =
+        per_column.iter().map(|c| c.1.iter().enumerate().map(|(code, &rank)| (rank, code as u32)).collect()).collect();
     let mut labels: Vec<String> = sorted_tuples
         .iter()
         .map(|t| {
@@ -353,7 +368,9 @@ fn number_tuples(per_column: &[ColumnCodes], rows: usize) -> NumberedTuples {
     let bases: Vec<u64> = per_column.iter().map(|c| c.1.iter().max().map_or(1, |&m| m as u64 + 1)).collect();
     let product = bases.iter().try_fold(1u64, |acc, &b| acc.checked_mul(b)).filter(|&p| p <= DENSE_TUPLES);
     let Some(product) = product else { return number_tuples_by_map(per_column, rows) };
-    let key = |row: usize| per_column.iter().zip(&bases).fold(0u64, |acc, (c, &base)| acc * base + c.1[c.0[row] as usize] as u64);
+    let key = |row: usize| {
+        per_column.iter().zip(&bases).fold(0u64, |acc, (c, &base)| acc * base + c.1[c.0[row] as usize] as u64)
+    };
     // Each row's key, replaced by its stratum number once the keys are counted.
     let mut row_stratum: Vec<u32> = (0..rows).map(|row| key(row) as u32).collect();
     let mut sizes_by_key = vec![0u64; product as usize];
@@ -475,7 +492,8 @@ mod tests {
         let batches = dictionary_batches(&dictionary, &rows);
         let mut at = 0;
         for b in &batches {
-            let text: Vec<Option<&str>> = rows[at..at + b.len()].iter().map(|k| k.map(|k| dictionary[k as usize])).collect();
+            let text: Vec<Option<&str>> =
+                rows[at..at + b.len()].iter().map(|k| k.map(|k| dictionary[k as usize])).collect();
             at += b.len();
             plain.push(&[Arc::new(StringArray::from(text)) as ArrayRef]).unwrap();
             dict.push(std::slice::from_ref(b)).unwrap();

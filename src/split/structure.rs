@@ -89,8 +89,14 @@ pub fn time_values(path: &Path, batch: &Batch, column: &str, out: &mut Vec<i64>)
             }
             TimeKind::Date
         }
-        DataType::Int8 | DataType::Int16 | DataType::Int32 | DataType::Int64 | DataType::UInt8 | DataType::UInt16
-        | DataType::UInt32 | DataType::UInt64 => {
+        DataType::Int8
+        | DataType::Int16
+        | DataType::Int32
+        | DataType::Int64
+        | DataType::UInt8
+        | DataType::UInt16
+        | DataType::UInt32
+        | DataType::UInt64 => {
             let ints = arrow_cast::cast(array, &DataType::Int64)
                 .map_err(|_| Error::Options(format!("--order-by: `{column}` holds integers beyond 64 bits")))?;
             out.extend_from_slice(ints.as_primitive::<Int64Type>().values());
@@ -668,7 +674,8 @@ mod tests {
     #[test]
     fn stable_shares_are_close_to_asked() {
         let r = Ratios::parse("70,15,15").unwrap();
-        let keys: Vec<RowDigest> = (0u32..30_000).map(|i| *blake3::hash(&i.to_le_bytes()).as_bytes().first_chunk::<16>().unwrap()).collect();
+        let keys: Vec<RowDigest> =
+            (0u32..30_000).map(|i| *blake3::hash(&i.to_le_bytes()).as_bytes().first_chunk::<16>().unwrap()).collect();
         let p = assign_stable(&keys, &r, 1);
         let test = p.iter().filter(|&&x| x == 2).count() as f64 / 30_000.0;
         // Binomial sd at n = 30000, p = 0.15 is 0.0021; allow 4 sd.

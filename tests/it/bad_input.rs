@@ -148,7 +148,12 @@ fn csv_values_that_do_not_fit_the_sealed_type_name_line_and_column() {
 #[test]
 fn malformed_json_lines_are_named_by_line() {
     let ok = "{\"a\":1,\"b\":2}\n";
-    refuses("dup.jsonl", format!("{ok}{{\"a\":1,\"a\":2,\"b\":3}}\n").as_bytes(), &[], &["line 2", "`a` appears twice"]);
+    refuses(
+        "dup.jsonl",
+        format!("{ok}{{\"a\":1,\"a\":2,\"b\":3}}\n").as_bytes(),
+        &[],
+        &["line 2", "`a` appears twice"],
+    );
     refuses(
         "big.jsonl",
         format!("{ok}{{\"a\":123456789012345678901234,\"b\":1}}\n").as_bytes(),

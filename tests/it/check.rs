@@ -44,7 +44,8 @@ fn leaky(t: &Test) -> Leaky {
         n += 1;
         n
     };
-    let mut l = Leaky { text: String::new(), rows: 0, exact: vec![], relabelled: vec![], near: vec![], group_only: vec![] };
+    let mut l =
+        Leaky { text: String::new(), rows: 0, exact: vec![], relabelled: vec![], near: vec![], group_only: vec![] };
     // Three exact copies of test rows.
     for r in &test[..3] {
         l.exact.push(push(&mut text, r));
@@ -91,7 +92,18 @@ fn leaky(t: &Test) -> Leaky {
 fn sealed() -> Test {
     let t = Test::new();
     t.demo();
-    t.ok(&["split", "water-quality.csv", "--out", "out", "--label", "bloom_class", "--group", "station", "--stratify", "bloom_class"]);
+    t.ok(&[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "out",
+        "--label",
+        "bloom_class",
+        "--group",
+        "station",
+        "--stratify",
+        "bloom_class",
+    ]);
     t
 }
 
@@ -131,7 +143,12 @@ fn injected_leaks_are_counted_exactly_and_the_train_partition_is_clean() {
     let stations: HashSet<String> = records(&t.path("out/test.csv")).into_iter().map(|r| r[0].clone()).collect();
     assert_eq!(header(&t.path("out/test.csv"))[0], "station");
     assert!(stations.len() > 1);
-    assert_eq!(test["findings"]["group"]["distinct_per_file"], serde_json::json!([stations.len()]), "{}", test["findings"]["group"]);
+    assert_eq!(
+        test["findings"]["group"]["distinct_per_file"],
+        serde_json::json!([stations.len()]),
+        "{}",
+        test["findings"]["group"]
+    );
     let l = leaky(&t);
     t.write("later.csv", &l.text);
     let r = t.run(&["check", "later.csv", "--against", "out", "--json", "--max-examples", "20"]);
@@ -170,8 +187,11 @@ fn leaks_are_found_across_formats_column_orders_and_extra_columns() {
         })
         .collect();
     let s = batches[0].schema();
-    let mut w = parquet::arrow::ArrowWriter::try_new(std::fs::File::create(t.path("later.parquet")).unwrap(), s.clone(), None).unwrap();
-    let mut ipc = arrow_ipc::writer::FileWriter::try_new(std::fs::File::create(t.path("later.arrow")).unwrap(), &s).unwrap();
+    let mut w =
+        parquet::arrow::ArrowWriter::try_new(std::fs::File::create(t.path("later.parquet")).unwrap(), s.clone(), None)
+            .unwrap();
+    let mut ipc =
+        arrow_ipc::writer::FileWriter::try_new(std::fs::File::create(t.path("later.arrow")).unwrap(), &s).unwrap();
     let mut json = arrow_json::LineDelimitedWriter::new(std::fs::File::create(t.path("later.jsonl")).unwrap());
     for b in &batches {
         w.write(b).unwrap();
@@ -246,7 +266,8 @@ fn missing_columns_are_not_checked_and_fail_unless_partial() {
     assert_eq!(r.code, 1, "not checked fails the run");
     let j = r.json();
     assert_eq!(j["clean"], false);
-    let kinds: HashSet<&str> = j["not_checked"].as_array().unwrap().iter().map(|n| n["kind"].as_str().unwrap()).collect();
+    let kinds: HashSet<&str> =
+        j["not_checked"].as_array().unwrap().iter().map(|n| n["kind"].as_str().unwrap()).collect();
     assert_eq!(kinds, HashSet::from(["row", "features", "near"]));
     assert!(j["not_checked"][0]["reason"].as_str().unwrap().contains("ph"));
     let r = t.run(&["check", "renamed.csv", "--against", "out", "--allow-partial"]);
@@ -297,7 +318,10 @@ fn keyed_seals_need_their_key() {
     t.ok(&["split", "water-quality.csv", "--out", "out", "--label", "bloom_class", "--digest-key", "k1.hex"]);
     let m = crate::util::manifest(&t.path("out"));
     assert_eq!(m["digest"]["keyed"].as_bool(), Some(true));
-    assert!(!std::fs::read_to_string(t.path("out/manifest.yaml")).unwrap().contains(key.trim()), "the key never enters the manifest");
+    assert!(
+        !std::fs::read_to_string(t.path("out/manifest.yaml")).unwrap().contains(key.trim()),
+        "the key never enters the manifest"
+    );
     t.run(&["check", "out/test.csv", "--against", "out"]).fails_with(&["keyed digests", "--digest-key"]);
     t.run(&["check", "out/test.csv", "--against", "out", "--digest-key", "k2.hex"]).fails_with(&["fingerprint"]);
     let j = t.run(&["check", "out/test.csv", "--against", "out", "--digest-key", "k1.hex", "--json"]).json();
@@ -323,7 +347,12 @@ fn type_drift_is_an_error_not_a_clean_result() {
         ("river", Arc::new(StringArray::from(vec!["Alder", "Esk"])) as ArrayRef),
     ])
     .unwrap();
-    let mut w = parquet::arrow::ArrowWriter::try_new(std::fs::File::create(t.path("drift.parquet")).unwrap(), batch.schema(), None).unwrap();
+    let mut w = parquet::arrow::ArrowWriter::try_new(
+        std::fs::File::create(t.path("drift.parquet")).unwrap(),
+        batch.schema(),
+        None,
+    )
+    .unwrap();
     w.write(&batch).unwrap();
     w.close().unwrap();
     t.run(&["check", "drift.parquet", "--against", "out"])

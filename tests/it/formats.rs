@@ -10,13 +10,19 @@ use crate::util::{fixture, manifest, Test};
 /// What must not depend on the format: partition sizes, content digests
 /// and the seal files' bytes.
 fn identity(t: &Test, input: &str, out: &str, extra: &[&str]) -> Vec<String> {
-    let mut args = vec!["split", input, "--out", out, "--seed", "5", "--stratify", "bloom_class", "--label", "bloom_class"];
+    let mut args =
+        vec!["split", input, "--out", out, "--seed", "5", "--stratify", "bloom_class", "--label", "bloom_class"];
     args.extend_from_slice(extra);
     t.ok(&args);
     let m = manifest(&t.path(out));
     let mut v = Vec::new();
     for p in m["partitions"].as_sequence().unwrap() {
-        v.push(format!("{} {} {}", p["name"].as_str().unwrap(), p["rows"].as_u64().unwrap(), p["content_digest"].as_str().unwrap()));
+        v.push(format!(
+            "{} {} {}",
+            p["name"].as_str().unwrap(),
+            p["rows"].as_u64().unwrap(),
+            p["content_digest"].as_str().unwrap()
+        ));
     }
     for f in ["rows", "features", "loose"] {
         v.push(blake3::hash(&std::fs::read(t.path(&format!("{out}/seal.{f}.bin"))).unwrap()).to_hex().to_string());
@@ -135,7 +141,8 @@ fn compression_sets_the_parquet_codec_and_keeps_the_digests() {
     assert_eq!(parquet_codecs(&t.path("kept/train.parquet")), ["ZSTD"]);
     assert!(manifest(&t.path("kept"))["options"].get("compression").is_none());
     // Other output formats have no codec to set.
-    t.run(&["split", "water-quality.csv", "--out", "c", "--compression", "zstd"]).fails_with(&["--compression", "Parquet"]);
+    t.run(&["split", "water-quality.csv", "--out", "c", "--compression", "zstd"])
+        .fails_with(&["--compression", "Parquet"]);
     assert!(!t.path("c").exists());
 }
 
@@ -174,10 +181,19 @@ fn json_lines_key_order_and_missing_keys() {
     let digests = |input: &str, out: &str| {
         t.ok(&["split", input, "--out", out, "--ratios", "50,50"]);
         let m = manifest(&t.path(out));
-        m["partitions"].as_sequence().unwrap().iter().map(|p| p["content_digest"].as_str().unwrap().to_string()).collect::<Vec<_>>()
+        m["partitions"]
+            .as_sequence()
+            .unwrap()
+            .iter()
+            .map(|p| p["content_digest"].as_str().unwrap().to_string())
+            .collect::<Vec<_>>()
     };
     let a = digests("a.jsonl", "oa");
-    assert_eq!(a, digests("b.jsonl", "ob"), "key order, a missing key as null, 3.0 as 3, an offset as the same instant");
+    assert_eq!(
+        a,
+        digests("b.jsonl", "ob"),
+        "key order, a missing key as null, 3.0 as 3, an offset as the same instant"
+    );
     assert_eq!(a, digests("c.csv", "oc"), "JSON Lines and CSV");
 }
 
@@ -232,7 +248,8 @@ fn digest_vectors_are_reproduced() {
 /// decode row groups on several threads and batches end at row-group ends.
 fn write_small_row_groups(t: &Test, name: &str) {
     let file = std::fs::File::open(fixture("water-quality.csv")).unwrap();
-    let reader = arrow_csv::ReaderBuilder::new(demo_schema()).with_header(true).with_batch_size(700).build(file).unwrap();
+    let reader =
+        arrow_csv::ReaderBuilder::new(demo_schema()).with_header(true).with_batch_size(700).build(file).unwrap();
     let props = parquet::file::properties::WriterProperties::builder().set_max_row_group_row_count(Some(250)).build();
     let pq = std::fs::File::create(t.path(name)).unwrap();
     let mut w = parquet::arrow::ArrowWriter::try_new(pq, demo_schema(), Some(props)).unwrap();
@@ -252,7 +269,18 @@ fn many_row_groups_read_in_parallel_keep_the_file_order_whatever_the_thread_coun
         write_small_row_groups(&t, "wq.parquet");
         let csv = identity(&t, "water-quality.csv", "a", &[]);
         assert_eq!(csv, identity(&t, "wq.parquet", "b", &[]), "{threads} thread(s)");
-        t.ok(&["split", "wq.parquet", "--out", "c", "--group", "station", "--stratify", "bloom_class", "--label", "bloom_class"]);
+        t.ok(&[
+            "split",
+            "wq.parquet",
+            "--out",
+            "c",
+            "--group",
+            "station",
+            "--stratify",
+            "bloom_class",
+            "--label",
+            "bloom_class",
+        ]);
         t.ok(&["verify", "c"]);
         // The whole input against its own seal: every test row, group and
         // near-copy is found, with examples in file order.
@@ -269,7 +297,8 @@ fn many_row_groups_read_in_parallel_keep_the_file_order_whatever_the_thread_coun
 fn write_with_nulls(t: &Test, name: &str, props: Option<parquet::file::properties::WriterProperties>) {
     use arrow_array::{Array, BooleanArray, RecordBatch};
     let file = std::fs::File::open(fixture("water-quality.csv")).unwrap();
-    let reader = arrow_csv::ReaderBuilder::new(demo_schema()).with_header(true).with_batch_size(250).build(file).unwrap();
+    let reader =
+        arrow_csv::ReaderBuilder::new(demo_schema()).with_header(true).with_batch_size(250).build(file).unwrap();
     let mut at = 0usize;
     let batches: Vec<RecordBatch> = reader
         .map(|b| {

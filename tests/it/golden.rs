@@ -17,17 +17,100 @@ const KEY: &str = "7c1e0f5a9b3d2c4e6f8a0b1c2d3e4f5061728394a5b6c7d8e9f0011223344
 /// The commands, in order; each runs in the same folder, so later ones see earlier outputs.
 const SCRIPT: &[&[&str]] = &[
     &["split", "water-quality.csv", "--out", "plain", "--json"],
-    &["split", "water-quality.csv", "--out", "strat", "--stratify", "bloom_class", "--label", "bloom_class", "--folds", "5", "--seed", "7", "--json"],
-    &["split", "water-quality.csv", "--out", "binned", "--stratify", "water_temp_c,river", "--bins", "4", "--ratios", "0.6,0.2,0.2"],
-    &["split", "water-quality.csv", "--out", "grouped", "--group", "station", "--stratify", "bloom_class", "--label", "bloom_class", "--folds", "4", "--json"],
-    &["split", "water-quality.csv", "--out", "timed", "--order-by", "sample_time", "--gap", "7d", "--folds", "3", "--json"],
+    &[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "strat",
+        "--stratify",
+        "bloom_class",
+        "--label",
+        "bloom_class",
+        "--folds",
+        "5",
+        "--seed",
+        "7",
+        "--json",
+    ],
+    &[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "binned",
+        "--stratify",
+        "water_temp_c,river",
+        "--bins",
+        "4",
+        "--ratios",
+        "0.6,0.2,0.2",
+    ],
+    &[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "grouped",
+        "--group",
+        "station",
+        "--stratify",
+        "bloom_class",
+        "--label",
+        "bloom_class",
+        "--folds",
+        "4",
+        "--json",
+    ],
+    &[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "timed",
+        "--order-by",
+        "sample_time",
+        "--gap",
+        "7d",
+        "--folds",
+        "3",
+        "--json",
+    ],
     &["split", "water-quality.csv", "--out", "stable", "--stable", "--group", "station", "--ratios", "80,20", "--json"],
     &["split", "water-quality.csv", "--out", "stable-rows", "--stable", "--key", "station,sample_time", "--seed", "3"],
     &["split", "water-quality.csv", "--out", "loo", "--ratios", "90,10", "--folds", "loo", "--group", "river"],
     &["split", "water-quality.csv", "--out", "keyed", "--digest-key", "key.hex", "--label", "bloom_class", "--json"],
-    &["split", "water-quality.csv", "--out", "pq", "--output-format", "parquet", "--label", "bloom_class", "--stratify", "bloom_class"],
-    &["split", "water-quality.csv", "--out", "pq-zstd", "--output-format", "parquet", "--compression", "zstd:3", "--group", "station"],
-    &["split", "pq/train.parquet", "--out", "from-pq", "--output-format", "arrow", "--stratify", "bloom_class", "--json"],
+    &[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "pq",
+        "--output-format",
+        "parquet",
+        "--label",
+        "bloom_class",
+        "--stratify",
+        "bloom_class",
+    ],
+    &[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "pq-zstd",
+        "--output-format",
+        "parquet",
+        "--compression",
+        "zstd:3",
+        "--group",
+        "station",
+    ],
+    &[
+        "split",
+        "pq/train.parquet",
+        "--out",
+        "from-pq",
+        "--output-format",
+        "arrow",
+        "--stratify",
+        "bloom_class",
+        "--json",
+    ],
     &["split", "water-quality.csv", "--out", "lines", "--output-format", "jsonl", "--label", "ph"],
     &["split", "lines/train.jsonl", "--out", "from-lines", "--group", "station"],
     &["split", "water-quality.csv", "--out", "level", "--label", "ph", "--seed", "2", "--json"],
@@ -75,7 +158,17 @@ fn write_predictions(t: &Test, folder: &str) {
     let column = |name: &str| head.iter().position(|h| h == name).expect("column");
     if folder == "strat" {
         let chl = column("chlorophyll_ug_l");
-        let class = |c: f64, t: f64| if c > t + 10.0 { "high" } else if c > t + 5.0 { "moderate" } else if c > t { "low" } else { "none" };
+        let class = |c: f64, t: f64| {
+            if c > t + 10.0 {
+                "high"
+            } else if c > t + 5.0 {
+                "moderate"
+            } else if c > t {
+                "low"
+            } else {
+                "none"
+            }
+        };
         for (name, threshold) in [("rule-a.csv", 8.0), ("rule-b.csv", 10.0)] {
             let mut text = String::from("row_id,prediction\n");
             for r in &rows {

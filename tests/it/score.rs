@@ -17,7 +17,15 @@ fn predict(t: &Test, name: &str, threshold: f64) {
     let mut text = String::from("row_id,prediction\n");
     for r in records(&path) {
         let c: f64 = r[chl].parse().unwrap();
-        let class = if c > threshold + 10.0 { "high" } else if c > threshold + 5.0 { "moderate" } else if c > threshold { "low" } else { "none" };
+        let class = if c > threshold + 10.0 {
+            "high"
+        } else if c > threshold + 5.0 {
+            "moderate"
+        } else if c > threshold {
+            "low"
+        } else {
+            "none"
+        };
         text.push_str(&format!("{},{class}\n", r[0]));
     }
     t.write(name, text);
@@ -62,7 +70,8 @@ fn scoring_twice_counts_and_reports_the_best_with_its_optimism() {
     for k in ["name", "value", "optimism", "corrected"] {
         assert!(!best[k].is_null(), "best.{k}: {b}");
     }
-    let (bv, opt, cor) = (best["value"].as_f64().unwrap(), best["optimism"].as_f64().unwrap(), best["corrected"].as_f64().unwrap());
+    let (bv, opt, cor) =
+        (best["value"].as_f64().unwrap(), best["optimism"].as_f64().unwrap(), best["corrected"].as_f64().unwrap());
     assert!(opt >= 0.0 && (cor - (bv - opt)).abs() < 1e-12, "accuracy: higher is better, corrected = best - optimism");
     let l = t.ok(&["ledger", "out", "--json"]).json();
     assert_eq!(l["intact"], true);
@@ -221,7 +230,9 @@ fn regression_scores_and_a_label_that_does_not_fit() {
 fn the_modelling_teams_copy_verifies_and_checks_without_the_labelled_files() {
     let t = sealed();
     std::fs::create_dir(t.path("modelling")).unwrap();
-    for f in ["train.csv", "validation.csv", "test.features.csv", "manifest.yaml", "seal.features.bin", "seal.loose.bin"] {
+    for f in
+        ["train.csv", "validation.csv", "test.features.csv", "manifest.yaml", "seal.features.bin", "seal.loose.bin"]
+    {
         std::fs::copy(t.path(&format!("out/{f}")), t.path(&format!("modelling/{f}"))).unwrap();
     }
     assert_eq!(t.run(&["verify", "modelling"]).code, 1, "without --shareable the missing files are problems");

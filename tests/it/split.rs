@@ -93,7 +93,18 @@ fn same_seed_gives_byte_identical_outputs() {
     let t = Test::new();
     t.demo();
     let args = |out: &'static str, seed: &'static str| {
-        vec!["split", "water-quality.csv", "--out", out, "--seed", seed, "--stratify", "bloom_class", "--label", "bloom_class"]
+        vec![
+            "split",
+            "water-quality.csv",
+            "--out",
+            out,
+            "--seed",
+            seed,
+            "--stratify",
+            "bloom_class",
+            "--label",
+            "bloom_class",
+        ]
     };
     t.ok(&args("a", "11"));
     t.ok(&args("b", "11"));
@@ -218,7 +229,10 @@ fn golden_demo_split_is_stable() {
         ]
     );
     let test_csv = std::fs::read(t.path("out/test.csv")).unwrap();
-    assert_eq!(blake3::hash(&test_csv).to_hex().as_str(), "bac3c13a32cc2f2da47a8991d5c57fe964a6eebfe3e538202b0651953403cf0b");
+    assert_eq!(
+        blake3::hash(&test_csv).to_hex().as_str(),
+        "bac3c13a32cc2f2da47a8991d5c57fe964a6eebfe3e538202b0651953403cf0b"
+    );
 }
 
 #[test]
@@ -239,7 +253,22 @@ fn outputs_do_not_depend_on_the_thread_count() {
     for threads in ["1", "4"] {
         let t = Test::new().env("RAYON_NUM_THREADS", threads);
         t.demo();
-        t.ok(&["split", "water-quality.csv", "--out", "out", "--group", "station", "--stratify", "bloom_class", "--label", "bloom_class", "--folds", "3", "--output-format", "parquet"]);
+        t.ok(&[
+            "split",
+            "water-quality.csv",
+            "--out",
+            "out",
+            "--group",
+            "station",
+            "--stratify",
+            "bloom_class",
+            "--label",
+            "bloom_class",
+            "--folds",
+            "3",
+            "--output-format",
+            "parquet",
+        ]);
         seen.push(folder_bytes(&t.path("out")));
     }
     assert_eq!(seen[0], seen[1]);

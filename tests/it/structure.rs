@@ -21,7 +21,19 @@ fn rows_of(t: &Test, out: &str, parts: &[&str]) -> Vec<(String, Vec<String>)> {
 fn grouped_split_keeps_stations_whole_and_reports_shares() {
     let t = Test::new();
     t.demo();
-    let j = t.ok(&["split", "water-quality.csv", "--out", "out", "--group", "station", "--stratify", "bloom_class", "--json"]).json();
+    let j = t
+        .ok(&[
+            "split",
+            "water-quality.csv",
+            "--out",
+            "out",
+            "--group",
+            "station",
+            "--stratify",
+            "bloom_class",
+            "--json",
+        ])
+        .json();
     let mut station_part: HashMap<String, String> = HashMap::new();
     for (p, r) in rows_of(&t, "out", &["train", "validation", "test"]) {
         let before = station_part.entry(r[0].clone()).or_insert(p.clone());
@@ -94,7 +106,20 @@ fn time_order_with_equal_times_at_the_boundaries_and_a_gap_of_whole_days() {
 fn rolling_origin_folds_train_only_on_earlier_blocks() {
     let t = Test::new();
     daily(&t);
-    t.ok(&["split", "daily.csv", "--out", "out", "--order-by", "day", "--ratios", "80,20", "--gap", "1d", "--folds", "4"]);
+    t.ok(&[
+        "split",
+        "daily.csv",
+        "--out",
+        "out",
+        "--order-by",
+        "day",
+        "--ratios",
+        "80,20",
+        "--gap",
+        "1d",
+        "--folds",
+        "4",
+    ]);
     let train = records(&t.path("out/train.csv"));
     assert_eq!(header(&t.path("out/train.csv")).last().unwrap(), "fold");
     let m = manifest(&t.path("out"));
@@ -120,7 +145,18 @@ fn rolling_origin_folds_train_only_on_earlier_blocks() {
 fn k_fold_validates_every_development_row_once() {
     let t = Test::new();
     t.demo();
-    t.ok(&["split", "water-quality.csv", "--out", "out", "--ratios", "80,20", "--folds", "5", "--stratify", "bloom_class"]);
+    t.ok(&[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "out",
+        "--ratios",
+        "80,20",
+        "--folds",
+        "5",
+        "--stratify",
+        "bloom_class",
+    ]);
     let train = records(&t.path("out/train.csv"));
     let n = train.len();
     let mut sizes = [0usize; 5];

@@ -40,7 +40,10 @@ impl Run {
 
 impl Test {
     pub fn new() -> Self {
-        Test { dir: tempfile::tempdir().expect("temp dir"), env: vec![("SOURCE_DATE_EPOCH".into(), "1700000000".into())] }
+        Test {
+            dir: tempfile::tempdir().expect("temp dir"),
+            env: vec![("SOURCE_DATE_EPOCH".into(), "1700000000".into())],
+        }
     }
 
     pub fn path(&self, rel: &str) -> PathBuf {

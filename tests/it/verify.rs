@@ -44,7 +44,10 @@ fn intact_folder_verifies() {
     assert_eq!(j["rows_checked"], test_rows);
     assert_eq!(j["partitions_redigested"], 1);
     let j = t.ok(&["verify", "out", "--deep", "--json"]).json();
-    assert_eq!((j["intact"].as_bool(), j["rows_checked"].as_u64(), j["partitions_redigested"].as_u64()), (Some(true), Some(3000), Some(3)));
+    assert_eq!(
+        (j["intact"].as_bool(), j["rows_checked"].as_u64(), j["partitions_redigested"].as_u64()),
+        (Some(true), Some(3000), Some(3))
+    );
 }
 
 #[test]
@@ -157,7 +160,10 @@ fn a_resealed_manifest_is_caught_by_the_files_or_the_pin() {
     let test_rows = crate::util::manifest(&t.path("out"))["partitions"][2]["rows"].as_u64().unwrap();
     let (from, to) = (format!("rows: {test_rows}"), format!("rows: {}", test_rows + 1));
     let text = std::fs::read_to_string(t.path("out/manifest.yaml")).unwrap();
-    let at = text.find("- name: test\n").and_then(|i| text[i..].find(&from).map(|j| i + j)).expect("the test partition's row count");
+    let at = text
+        .find("- name: test\n")
+        .and_then(|i| text[i..].find(&from).map(|j| i + j))
+        .expect("the test partition's row count");
     reseal(&t.path("out/manifest.yaml"), |b| format!("{}{to}{}", &b[..at], &b[at + from.len()..]));
     let r = t.run(&["verify", "out"]);
     assert_eq!(r.code, 1);
@@ -220,7 +226,10 @@ fn a_manifest_naming_a_path_outside_its_folder_is_refused() {
 /// Seal file records as (digest, row) pairs, and back, sorted.
 fn seal_records(path: &Path) -> Vec<([u8; 16], u64)> {
     let bytes = std::fs::read(path).unwrap();
-    bytes.chunks_exact(24).map(|c| (c[..16].try_into().unwrap(), u64::from_le_bytes(c[16..].try_into().unwrap()))).collect()
+    bytes
+        .chunks_exact(24)
+        .map(|c| (c[..16].try_into().unwrap(), u64::from_le_bytes(c[16..].try_into().unwrap())))
+        .collect()
 }
 
 fn write_seal_records(path: &Path, mut records: Vec<([u8; 16], u64)>) -> String {
@@ -259,6 +268,9 @@ fn a_seal_file_re_sealed_around_other_digests_is_caught_by_the_test_rows() {
         let problems = r.json()["problems"].as_array().unwrap().clone();
         assert_eq!(problems.len(), 1, "{what}: {problems:?}");
         assert_eq!(problems[0]["file"], "seal.features.bin", "{what}");
-        assert!(problems[0]["what"].as_str().unwrap().contains("do not match the test partition's rows"), "{what}: {problems:?}");
+        assert!(
+            problems[0]["what"].as_str().unwrap().contains("do not match the test partition's rows"),
+            "{what}: {problems:?}"
+        );
     }
 }
