@@ -8,6 +8,9 @@
 //! cargo run --release --example digest_floor -- INPUT LABEL
 //! ```
 
+// A program of its own: it reports on the terminal.
+#![allow(clippy::print_stdout, clippy::print_stderr)]
+
 use std::path::PathBuf;
 
 use cleave::digest::DigestSpec;

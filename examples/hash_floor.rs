@@ -8,6 +8,9 @@
 //! cargo run --release --example hash_floor -- ROWS BYTES
 //! ```
 
+// A program of its own: it reports on the terminal.
+#![allow(clippy::print_stdout, clippy::print_stderr)]
+
 use std::ops::Range;
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {

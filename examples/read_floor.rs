@@ -6,6 +6,9 @@
 //! cargo run --release --example read_floor -- SPLIT_FOLDER
 //! ```
 
+// A program of its own: it reports on the terminal.
+#![allow(clippy::print_stdout, clippy::print_stderr)]
+
 use std::path::PathBuf;
 
 use cleave::io::{Table, TypeHints};

@@ -500,7 +500,7 @@ pub fn load(path: &Path) -> Result<LoadedManifest> {
         .filter(|h| h.len() == 64 && h.bytes().all(|b| b.is_ascii_hexdigit()))
         .ok_or_else(|| manifest_err(&path, "does not end with a `checksum: HEX` line"))?
         .to_ascii_lowercase();
-    let computed = blake3::hash(text[..body_end].as_bytes()).to_hex().to_string();
+    let computed = blake3::hash(&text.as_bytes()[..body_end]).to_hex().to_string();
     let manifest: Manifest =
         serde_norway::from_str(text).map_err(|e| manifest_err(&path, format!("cannot be parsed: {e}")))?;
     if manifest.format_version != FORMAT_VERSION {

@@ -728,7 +728,7 @@ pub fn encode_predictions(p: &Predictions) -> Vec<u8> {
 /// # Errors
 /// Malformed bytes.
 pub fn decode_predictions(bytes: &[u8]) -> std::result::Result<Predictions, String> {
-    if bytes.len() < 5 || (bytes.len() - 5) % 8 != 0 {
+    if bytes.len() < 5 || !(bytes.len() - 5).is_multiple_of(8) {
         return Err("stored predictions are malformed".into());
     }
     let width = u32::from_le_bytes(bytes[1..5].try_into().expect("4 bytes")) as usize;
@@ -811,8 +811,7 @@ mod tests {
             }
         }
         let rate = covered as f64 / reps as f64;
-        eprintln!("coverage of the 95% interval over {reps} repetitions: {rate:.4}");
-        assert!((0.915..=0.985).contains(&rate), "coverage {rate}");
+        assert!((0.915..=0.985).contains(&rate), "coverage of the 95% interval over {reps} repetitions: {rate:.4}");
     }
 
     // The expected minimum of two independent N(mu, sigma^2) is
@@ -840,7 +839,6 @@ mod tests {
         }
         let gap = 1.0 / std::f64::consts::PI.sqrt();
         let (best, opt, corrected) = (best_sum / reps as f64, opt_sum / reps as f64, corrected_sum / reps as f64);
-        eprintln!("best of two {best:.4}, optimism {opt:.4}, corrected {corrected:.4} (expected 4.4358, 0.5642, 5)");
         assert!((best - (5.0 - gap)).abs() < 0.1, "best of two averages {best}, expected 4.436");
         assert!((opt - gap).abs() < 0.05, "optimism averages {opt}, expected {gap}");
         assert!((corrected - 5.0).abs() < 0.1, "corrected averages {corrected}");

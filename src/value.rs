@@ -101,7 +101,7 @@ pub fn parse_date(text: &str) -> Option<i32> {
 }
 
 fn micros_exact(nanos: u32) -> bool {
-    nanos % 1000 == 0
+    nanos.is_multiple_of(1000)
 }
 
 /// Parses an RFC 3339 timestamp with an offset (`Z` or `+02:00`) into
@@ -349,7 +349,7 @@ fn short_decimal(v: f64) -> Option<(u64, usize)> {
 /// Appends `[-]DIGITSeEXP` for `n x 10^-k` (`n > 0`).
 fn write_scaled(negative: bool, mut n: u64, k: usize, out: &mut Vec<u8>) {
     let mut exp = -(k as i64);
-    while n % 10 == 0 {
+    while n.is_multiple_of(10) {
         n /= 10;
         exp += 1;
     }
@@ -449,7 +449,7 @@ pub fn write_i64(v: i64, out: &mut Vec<u8>) {
     }
     let mut mag = v.unsigned_abs();
     let mut exp = 0u32;
-    while mag % 10 == 0 {
+    while mag.is_multiple_of(10) {
         mag /= 10;
         exp += 1;
     }
@@ -557,6 +557,7 @@ mod tests {
     }
 
     #[test]
+    #[allow(clippy::excessive_precision)] // the doubles next to the path's edges, written out in full
     fn short_decimal_path_edges() {
         for v in [
             1e-7,

@@ -131,7 +131,7 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
     let mut files_checked = 0;
     let mut rows_checked = 0;
     let mut partitions_redigested = 0;
-    let mut test_digests: Option<(Vec<(RowDigests, u64)>, Vec<crate::seal::SealRecord>)> = None;
+    let mut test_digests: Option<TestDigests> = None;
     let group_spec = (!m.options.group.is_empty()).then(|| GroupSpec::new(&m.options.group, key));
     // The modelling team's copy holds no labelled test rows.
     let parts: Vec<&manifest::PartitionRecord> =
@@ -319,6 +319,10 @@ struct Content {
     folds: BTreeMap<u32, u64>,
 }
 
+/// The test partition's digests with their rows, and its group records.
+type TestDigests = (Vec<(RowDigests, u64)>, Vec<crate::seal::SealRecord>);
+
+#[allow(clippy::too_many_arguments)] // one call site; a struct would only rename the arguments
 fn digest_partition(
     path: &Path,
     format: io::Format,

@@ -96,6 +96,8 @@ fn parse_format(s: &str) -> Result<crate::io::Format, String> {
 
 /// The manifest's creation time: `SOURCE_DATE_EPOCH` when set (so that two
 /// runs can be byte-identical), else now; RFC 3339 in UTC, whole seconds.
+/// The command line's one look at the environment and the clock.
+#[allow(clippy::disallowed_methods)]
 fn creation_time() -> anyhow::Result<String> {
     let secs = match std::env::var("SOURCE_DATE_EPOCH") {
         Ok(v) => {

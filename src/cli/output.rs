@@ -1,6 +1,9 @@
 //! The only writer of stdout and stderr: reports as text or one JSON
 //! document, warnings and errors as single lines.
 
+// The one place that writes to the terminal.
+#![allow(clippy::disallowed_methods)]
+
 use std::io::Write;
 
 /// Prints a report to stdout.

@@ -38,6 +38,9 @@ use crate::error::{Error, Result};
 use crate::io::ColumnType;
 use crate::value;
 
+/// A decoded batch, the raw bytes of its records (when asked for at open) and each record's file line.
+pub type CsvBatch = (RecordBatch, Option<RawRows>, Vec<u64>);
+
 const CHUNK: usize = 1 << 20;
 
 /// One tokenised record: field texts and, optionally, its raw bytes.
@@ -540,7 +543,7 @@ impl CsvReader {
 
     /// Next batch, the raw bytes of its records when asked for at open, and
     /// each record's file line.
-    pub fn next_batch(&mut self) -> Result<Option<(RecordBatch, Option<RawRows>, Vec<u64>)>> {
+    pub fn next_batch(&mut self) -> Result<Option<CsvBatch>> {
         if self.done {
             return Ok(None);
         }

@@ -471,13 +471,13 @@ pub fn assign_time(times: &[i64], groups: Option<&Groups>, ratios: &Ratios, gap:
     for (row, &t) in times.iter().enumerate() {
         let p = partition[row] as usize;
         // The earliest later partition whose start (less the gap) this row reaches.
-        for q in p + 1..k {
-            if t >= starts[q] {
+        for &start in &starts[p + 1..k] {
+            if t >= start {
                 dropped_by_group[p] += 1;
                 partition[row] = DROPPED;
                 break;
             }
-            if gap > 0 && t > starts[q].saturating_sub(gap) {
+            if gap > 0 && t > start.saturating_sub(gap) {
                 dropped_by_gap[p] += 1;
                 partition[row] = DROPPED;
                 break;

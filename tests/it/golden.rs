@@ -246,6 +246,7 @@ fn transcript() -> String {
 }
 
 #[test]
+#[allow(clippy::disallowed_methods)] // a test may read the environment
 fn every_output_of_every_command_matches_the_pinned_transcript() {
     let path = fixture("golden/outputs.txt");
     let got = transcript();
