@@ -1,7 +1,7 @@
 //! The hashing floor for benchmarks: BLAKE3 in keyed mode over ROWS
 //! messages of BYTES bytes each, on one thread, once one message at a time
 //! (the `blake3` crate) and once 16 messages side by side
-//! ([`cleave::lanes`], as row digests are computed). A row digest cannot
+//! ([`cleave::digest::lanes`], as row digests are computed). A row digest cannot
 //! cost less than this.
 //!
 //! ```text
@@ -46,7 +46,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         let n = BATCH.min(rows - done);
         out.clear();
         buf[..8].copy_from_slice(&(done as u64).to_le_bytes());
-        cleave::lanes::keyed_many(&key, &buf, &ranges[..n], &mut out);
+        cleave::digest::lanes::keyed_many(&key, &buf, &ranges[..n], &mut out);
         fold ^= out.iter().fold(0, |f, d| f ^ d[0]);
         done += n;
     }

@@ -409,7 +409,7 @@ impl Collector {
 /// Unreadable files, and columns that cannot be read the sealed way.
 pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileReport> {
     let m = &seal.loaded.manifest;
-    let format = Format::resolve(path, opts.format)?;
+    let format = crate::io::resolve_format(path, opts.format)?;
     let table = Table::open(path, format, &seal.hints)?;
     let schema = table.schema();
     let has = |c: &String| schema.index_of(c).is_ok();

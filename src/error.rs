@@ -6,7 +6,7 @@
 
 use std::path::PathBuf;
 
-use crate::io::Format;
+use crate::format::Format;
 
 /// Result alias used across the library.
 pub type Result<T, E = Error> = std::result::Result<T, E>;

@@ -19,10 +19,11 @@ pub mod check;
 pub mod cli;
 pub mod digest;
 pub mod error;
+pub mod format;
 pub mod io;
-pub mod lanes;
 pub mod ledger;
 pub mod manifest;
+pub mod rng;
 pub mod score;
 pub mod seal;
 pub mod split;
@@ -30,3 +31,6 @@ pub mod value;
 pub mod verify;
 
 pub use error::{Error, Result};
+
+#[cfg(test)]
+mod layout;

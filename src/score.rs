@@ -41,7 +41,8 @@ use arrow_schema::DataType;
 use crate::error::{Error, Result};
 use crate::io::{ColumnType, Format, Table, TypeHints};
 use crate::manifest::LoadedManifest;
-use crate::split::{Partition, SplitRng};
+use crate::rng::SplitRng;
+use crate::split::Partition;
 
 /// A metric.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
@@ -520,7 +521,7 @@ pub fn load_predictions(
     positive: Option<u32>,
     ids: &[String],
 ) -> Result<Predictions> {
-    let format = Format::resolve(path, format)?;
+    let format = crate::io::resolve_format(path, format)?;
     let mut hints = TypeHints::new();
     hints.insert(crate::split::ROW_ID.into(), ColumnType::String);
     let table = Table::open(path, format, &hints)?;

@@ -17,7 +17,7 @@
 //!   less the rows with time > start of block i - gap.
 
 use crate::error::{Error, Result};
-use crate::split::rng::SplitRng;
+use crate::rng::SplitRng;
 use crate::split::structure::Groups;
 use crate::split::Strata;
 

@@ -15,7 +15,6 @@
 mod folds;
 mod memo;
 mod ratio;
-mod rng;
 mod strata;
 mod structure;
 
@@ -30,7 +29,6 @@ use arrow_schema::{DataType, Field, Schema, SchemaRef};
 
 pub use self::folds::{FoldCount, FoldKind, NO_FOLD};
 pub use self::ratio::{Partition, Ratios};
-pub use self::rng::SplitRng;
 pub use self::strata::{Strata, StrataBuilder, StratumColumn};
 pub use self::structure::{format_time, parse_gap, time_values, Groups, TimeKind};
 use crate::digest::{self, DigestBuckets, DigestSpec, GroupSpec, RowDigest, RowDigests};
@@ -41,6 +39,7 @@ use crate::manifest::{
     PartitionRecord, SealFile, SealKind, SealRecord, ShortStratum, Source, SplitOptionsRecord, StrataRecord, TimeRange,
     Tool,
 };
+use crate::rng::SplitRng;
 use crate::seal;
 use crate::split::memo::DictionaryMemo;
 
@@ -76,14 +75,14 @@ impl RowIds {
     }
 
     /// The ids of the test rows `rows` (1-based), in order, each passed to
-    /// `each`: the row numbers are hashed 16 side by side ([`crate::lanes`]),
+    /// `each`: the row numbers are hashed 16 side by side ([`crate::digest::lanes`]),
     /// the same hash as [`RowIds::id`]'s without one call of the hash per
     /// row, and the text is written without an allocation per row.
     pub fn each_id(&self, rows: std::ops::Range<u64>, mut each: impl FnMut(&str)) {
         let numbers: Vec<u8> = rows.flat_map(u64::to_le_bytes).collect();
         let ranges: Vec<std::ops::Range<usize>> = (0..numbers.len() / 8).map(|i| i * 8..i * 8 + 8).collect();
         let mut hashes = Vec::with_capacity(ranges.len());
-        crate::lanes::keyed_many(&self.key, &numbers, &ranges, &mut hashes);
+        crate::digest::lanes::keyed_many(&self.key, &numbers, &ranges, &mut hashes);
         let mut text = [0u8; 16];
         for hash in &hashes {
             digest::hex_into(&hash[..8], &mut text);
@@ -455,7 +454,7 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     check_combinations(cfg)?;
     check_output(cfg)?;
     let _lock = OutputLock::take(&cfg.out)?;
-    let format = Format::resolve(&cfg.input, cfg.format)?;
+    let format = crate::io::resolve_format(&cfg.input, cfg.format)?;
     let output_format = cfg.output_format.unwrap_or(format);
     if cfg.compression.is_some() && output_format != Format::Parquet {
         return Err(Error::Options(format!(
@@ -505,10 +504,10 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let mut stratify_types = Vec::new();
     for s in &stratify {
         let f = schema.field_with_name(s).expect("resolved above");
-        stratify_types.push((s.clone(), io::require_supported(&cfg.input, f)?));
+        stratify_types.push((s.clone(), crate::digest::require_supported(&cfg.input, f)?));
     }
     for g in &group {
-        io::require_supported(&cfg.input, schema.field_with_name(g).expect("resolved above"))?;
+        crate::digest::require_supported(&cfg.input, schema.field_with_name(g).expect("resolved above"))?;
     }
 
     // Pass one: what decides every row's partition.

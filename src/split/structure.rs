@@ -34,8 +34,8 @@ use std::path::Path;
 use crate::digest::{DigestMap, RowDigest};
 use crate::error::{Error, Result};
 use crate::io::Batch;
+use crate::rng::SplitRng;
 use crate::split::memo::DictionaryMemo;
-use crate::split::rng::SplitRng;
 use crate::split::{Ratios, Strata, DROPPED};
 use crate::value;
 
