@@ -18,7 +18,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let [folder] = args.as_slice() else {
         return Err("usage: read_floor SPLIT_FOLDER".into());
     };
-    let loaded = cleave::manifest::load(&PathBuf::from(folder))?;
+    let loaded = cleave::seal::manifest::load(&PathBuf::from(folder))?;
     let m = &loaded.manifest;
     let hints: TypeHints = m.source.columns.iter().map(|c| (c.name.clone(), c.column_type)).collect();
     let mut rows = 0u64;

@@ -29,9 +29,9 @@ use arrow_schema::{DataType, Field, Schema};
 use crate::digest::{self, DigestKey, DigestSpec, GroupSpec, RowDigest};
 use crate::error::{Error, Result};
 use crate::io::{self, Batch, ColumnType, Format, Table, TypeHints};
-use crate::manifest::{self, LoadedManifest, SealKind};
+use crate::seal::manifest::{self, LoadedManifest, SealKind};
+use crate::seal::time::time_values;
 use crate::seal::{self, SealRecord};
-use crate::split::time_values;
 
 /// A kind of finding.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
@@ -155,7 +155,7 @@ impl Seal {
                 ));
             }
         }
-        crate::verify::check_key(&loaded, key)?;
+        crate::seal::verify::check_key(&loaded, key)?;
         let m = &loaded.manifest;
         if m.digest.keyed && key.is_none() {
             return Err(untrusted(

@@ -22,13 +22,11 @@ pub mod error;
 pub mod format;
 pub mod io;
 pub mod ledger;
-pub mod manifest;
 pub mod rng;
 pub mod score;
 pub mod seal;
 pub mod split;
 pub mod value;
-pub mod verify;
 
 pub use error::{Error, Result};
 

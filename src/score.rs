@@ -40,9 +40,9 @@ use arrow_schema::DataType;
 
 use crate::error::{Error, Result};
 use crate::io::{ColumnType, Format, Table, TypeHints};
-use crate::manifest::LoadedManifest;
 use crate::rng::SplitRng;
-use crate::split::Partition;
+use crate::seal::manifest::LoadedManifest;
+use crate::seal::manifest::Partition;
 
 /// A metric.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
@@ -523,10 +523,10 @@ pub fn load_predictions(
 ) -> Result<Predictions> {
     let format = crate::io::resolve_format(path, format)?;
     let mut hints = TypeHints::new();
-    hints.insert(crate::split::ROW_ID.into(), ColumnType::String);
+    hints.insert(crate::seal::handoff::ROW_ID.into(), ColumnType::String);
     let table = Table::open(path, format, &hints)?;
     let schema = table.schema();
-    table.column_index(crate::split::ROW_ID)?;
+    table.column_index(crate::seal::handoff::ROW_ID)?;
     let index: HashMap<&str, usize> = ids.iter().enumerate().map(|(i, id)| (id.as_str(), i)).collect();
     let n = ids.len();
     let mut seen = vec![false; n];
@@ -571,20 +571,22 @@ pub fn load_predictions(
     let class_index: HashMap<&str, u32> = class_names.iter().enumerate().map(|(i, c)| (c.as_str(), i as u32)).collect();
     let mut batches = table.batches(None, false)?;
     while let Some(batch) = batches.next_batch()? {
-        let ids_col =
-            arrow_cast::cast(batch.data.column_by_name(crate::split::ROW_ID).expect("checked"), &DataType::Utf8)
-                .map_err(|e| bad(e.to_string()))?;
+        let ids_col = arrow_cast::cast(
+            batch.data.column_by_name(crate::seal::handoff::ROW_ID).expect("checked"),
+            &DataType::Utf8,
+        )
+        .map_err(|e| bad(e.to_string()))?;
         let ids_col = ids_col.as_string::<i32>();
         let row_of = |i: usize| -> Result<usize> {
             if ids_col.is_null(i) {
-                return Err(batch.error_at(path, i, crate::split::ROW_ID, "is empty"));
+                return Err(batch.error_at(path, i, crate::seal::handoff::ROW_ID, "is empty"));
             }
             let id = ids_col.value(i);
             index.get(id).copied().ok_or_else(|| {
                 batch.error_at(
                     path,
                     i,
-                    crate::split::ROW_ID,
+                    crate::seal::handoff::ROW_ID,
                     format!("`{}` is not a row of the sealed test set", crate::value::shorten(id)),
                 )
             })
@@ -603,7 +605,7 @@ pub fn load_predictions(
                 return Err(batch.error_at(
                     path,
                     i,
-                    crate::split::ROW_ID,
+                    crate::seal::handoff::ROW_ID,
                     format!("`{}` appears twice", ids_col.value(i)),
                 ));
             }

@@ -8,7 +8,7 @@ use crate::check::{self, CheckOptions, FileReport, Kind, Seal};
 use crate::cli::output::{self, sanitize};
 use crate::cli::Outcome;
 use crate::io::Format;
-use crate::manifest;
+use crate::seal::manifest;
 
 /// Check later training files for sealed test rows, near-copies, test groups and test-period rows.
 ///

@@ -7,8 +7,8 @@ use serde_json::{json, Value};
 use crate::cli::{creation_time, output, Outcome};
 use crate::io::Format;
 use crate::ledger::{self, EntryBody, Ledger};
-use crate::manifest;
 use crate::score::{self, Metric, Predictions, Truth};
+use crate::seal::manifest;
 
 /// Score predictions for the sealed test set, with a bootstrap interval, and record it in the ledger.
 ///
@@ -128,7 +128,7 @@ pub fn run_score(args: ScoreArgs) -> anyhow::Result<Outcome> {
         anyhow::bail!("--resamples must be at least 1");
     }
     let metric = args.metric.as_deref().map(Metric::parse).transpose()?;
-    let report = crate::verify::verify(&args.against, pin.as_deref(), None, Default::default())?;
+    let report = crate::seal::verify::verify(&args.against, pin.as_deref(), None, Default::default())?;
     if !report.intact() {
         let p = &report.problems[0];
         anyhow::bail!(
@@ -150,7 +150,7 @@ pub fn run_score(args: ScoreArgs) -> anyhow::Result<Outcome> {
     let positive = score::positive_class(&truth, metric, args.positive.as_deref())?;
     let seed = loaded.manifest.options.seed;
     let mut ids: Vec<String> = Vec::with_capacity(truth.len());
-    crate::split::RowIds::new(seed).each_id(1..truth.len() as u64 + 1, |id| ids.push(id.to_string()));
+    crate::seal::handoff::RowIds::new(seed).each_id(1..truth.len() as u64 + 1, |id| ids.push(id.to_string()));
     let preds = score::load_predictions(&args.predictions, args.format, &truth, metric, positive, &ids)?;
     let n = truth.len();
     let all: Vec<u32> = (0..n as u32).collect();

@@ -6,7 +6,7 @@ use serde_json::json;
 
 use crate::cli::output::{self, percent, sanitize};
 use crate::cli::Outcome;
-use crate::manifest;
+use crate::seal::manifest;
 
 /// Show a readable summary of a manifest: sizes, shares and strata.
 #[derive(Debug, clap::Args)]

@@ -115,7 +115,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         output::json(&json!({
             "schema_version": 1,
             "out": args.out.display().to_string(),
-            "manifest": crate::manifest::FILE_NAME,
+            "manifest": crate::seal::manifest::FILE_NAME,
             "manifest_checksum": outcome.manifest_checksum,
             "rows": m.source.rows,
             "partitions": partitions,
@@ -162,7 +162,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
             f.column
         ));
     }
-    text.push_str(&format!("sealed the test partition: {}\n", crate::manifest::FILE_NAME));
+    text.push_str(&format!("sealed the test partition: {}\n", crate::seal::manifest::FILE_NAME));
     text.push_str(&format!("seal identity (manifest checksum): {}\n", outcome.manifest_checksum));
     text.push_str(&format!(
         "pin it to verify later: cleave verify {} --expect-manifest {}\n",

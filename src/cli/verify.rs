@@ -5,7 +5,7 @@ use std::path::PathBuf;
 use serde_json::json;
 
 use crate::cli::{output, Outcome};
-use crate::manifest;
+use crate::seal::manifest;
 
 /// Check that a sealed folder still matches its manifest.
 #[derive(Debug, clap::Args)]
@@ -32,8 +32,8 @@ pub struct Args {
 pub fn run(args: Args) -> anyhow::Result<Outcome> {
     let pin = args.expect_manifest.as_deref().map(manifest::parse_pin).transpose()?;
     let key = args.digest_key.as_deref().map(crate::digest::DigestKey::read).transpose()?;
-    let depth = crate::verify::Depth { shareable: args.shareable, deep: args.deep };
-    let report = crate::verify::verify(&args.path, pin.as_deref(), key.as_ref(), depth)?;
+    let depth = crate::seal::verify::Depth { shareable: args.shareable, deep: args.deep };
+    let report = crate::seal::verify::verify(&args.path, pin.as_deref(), key.as_ref(), depth)?;
     let shown = output::sanitize(&args.path.display().to_string());
     if args.json {
         output::json(&json!({

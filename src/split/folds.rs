@@ -18,6 +18,7 @@
 
 use crate::error::{Error, Result};
 use crate::rng::SplitRng;
+use crate::seal::manifest::FoldKind;
 use crate::split::structure::Groups;
 use crate::split::Strata;
 
@@ -43,35 +44,6 @@ impl FoldCount {
             Ok(k) if k >= 2 => Ok(FoldCount::K(k)),
             Ok(k) => Err(Error::Options(format!("--folds {k}: cross-validation needs at least 2 folds"))),
             Err(_) => Err(Error::Options(format!("--folds `{text}` is not a number of folds (2 or more) or `loo`"))),
-        }
-    }
-}
-
-/// The kind of folds made, as the manifest records it.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum FoldKind {
-    /// Plain k-fold.
-    KFold,
-    /// Stratified k-fold.
-    Stratified,
-    /// Grouped k-fold (groups whole).
-    Grouped,
-    /// Leave-one-out (rows, or groups).
-    LeaveOneOut,
-    /// Rolling-origin blocks in time order.
-    RollingOrigin,
-}
-
-impl FoldKind {
-    /// The method's usual name.
-    pub fn name(self) -> &'static str {
-        match self {
-            FoldKind::KFold => "k-fold",
-            FoldKind::Stratified => "stratified k-fold",
-            FoldKind::Grouped => "grouped k-fold",
-            FoldKind::LeaveOneOut => "leave-one-out",
-            FoldKind::RollingOrigin => "rolling origin",
         }
     }
 }

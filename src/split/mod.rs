@@ -27,69 +27,33 @@ use arrow_array::types::Int32Type;
 use arrow_array::{ArrayRef, Int64Array, RecordBatch, UInt32Array};
 use arrow_schema::{DataType, Field, Schema, SchemaRef};
 
-pub use self::folds::{FoldCount, FoldKind, NO_FOLD};
-pub use self::ratio::{Partition, Ratios};
-pub use self::strata::{Strata, StrataBuilder, StratumColumn};
-pub use self::structure::{format_time, parse_gap, time_values, Groups, TimeKind};
+pub use self::folds::{FoldCount, NO_FOLD};
+pub use self::ratio::Ratios;
+pub use self::strata::{Strata, StrataBuilder};
+pub use self::structure::{parse_gap, Groups};
 use crate::digest::{self, DigestBuckets, DigestSpec, GroupSpec, RowDigest, RowDigests};
 use crate::error::{Error, Result};
 use crate::io::{self, ColumnType, Format, PartitionWriter, Table, TypeHints};
-use crate::manifest::{
-    self, BlockRecord, ColumnRecord, DigestRecord, FoldRecord, GroupRecord, HandoffRecord, Manifest, OrderRecord,
-    PartitionRecord, SealFile, SealKind, SealRecord, ShortStratum, Source, SplitOptionsRecord, StrataRecord, TimeRange,
-    Tool,
-};
 use crate::rng::SplitRng;
 use crate::seal;
+#[cfg(test)]
+use crate::seal::handoff::row_id;
+use crate::seal::handoff::RowIds;
+use crate::seal::handoff::ROW_ID;
+use crate::seal::manifest::FoldKind;
+use crate::seal::manifest::Partition;
+use crate::seal::manifest::{
+    self, BlockRecord, ColumnRecord, DigestRecord, FoldRecord, GroupRecord, HandoffRecord, Manifest, OrderRecord,
+    PartitionRecord, SealRecord, ShortStratum, Source, SplitOptionsRecord, StrataRecord, TimeRange, Tool,
+};
+use crate::seal::time::format_time;
+use crate::seal::time::time_values;
+use crate::seal::time::TimeKind;
+use crate::seal::write_seal;
 use crate::split::memo::DictionaryMemo;
 
 /// The partition code of a row left out (by the gap or the group rule).
 pub const DROPPED: u8 = u8::MAX;
-
-/// The row id column of the label-free test file.
-pub const ROW_ID: &str = "row_id";
-
-/// The row id of test row `test_row` (1-based): 16 hexadecimal digits of
-/// BLAKE3 keyed with `derive_key("cleave 2026-12-02 row id v1", seed)` over
-/// the row number. It depends on the position and the seed only, so it
-/// reveals nothing about the row's label.
-pub fn row_id(seed: u64, test_row: u64) -> String {
-    RowIds::new(seed).id(test_row)
-}
-
-/// Row ids of one seed (the key derived once).
-#[derive(Clone)]
-pub struct RowIds {
-    key: [u8; 32],
-}
-
-impl RowIds {
-    /// The row ids of a split with this seed.
-    pub fn new(seed: u64) -> Self {
-        RowIds { key: blake3::derive_key("cleave 2026-12-02 row id v1", &seed.to_le_bytes()) }
-    }
-
-    /// The id of test row `test_row` (1-based).
-    pub fn id(&self, test_row: u64) -> String {
-        digest::hex(&blake3::keyed_hash(&self.key, &test_row.to_le_bytes()).as_bytes()[..8])
-    }
-
-    /// The ids of the test rows `rows` (1-based), in order, each passed to
-    /// `each`: the row numbers are hashed 16 side by side ([`crate::digest::lanes`]),
-    /// the same hash as [`RowIds::id`]'s without one call of the hash per
-    /// row, and the text is written without an allocation per row.
-    pub fn each_id(&self, rows: std::ops::Range<u64>, mut each: impl FnMut(&str)) {
-        let numbers: Vec<u8> = rows.flat_map(u64::to_le_bytes).collect();
-        let ranges: Vec<std::ops::Range<usize>> = (0..numbers.len() / 8).map(|i| i * 8..i * 8 + 8).collect();
-        let mut hashes = Vec::with_capacity(ranges.len());
-        crate::digest::lanes::keyed_many(&self.key, &numbers, &ranges, &mut hashes);
-        let mut text = [0u8; 16];
-        for hash in &hashes {
-            digest::hex_into(&hash[..8], &mut text);
-            each(std::str::from_utf8(&text).expect("hex digits are ASCII"));
-        }
-    }
-}
 
 /// Everything a split needs, checked by the caller's option parsing.
 #[derive(Debug, Clone)]
@@ -1000,59 +964,6 @@ fn rows_shared_with_test(digests: &[DigestBuckets]) -> u64 {
         count += shared.iter().filter(|&&s| s).count() as u64;
     }
     count
-}
-
-/// Writes the seal files of the test partition: rows, features and loose
-/// digests, and with groups one record per test group.
-///
-/// # Errors
-/// Disk failures.
-pub fn write_seal(
-    dir: &Path,
-    test: &[(RowDigests, u64)],
-    groups: Option<&[seal::SealRecord]>,
-) -> Result<Vec<SealFile>> {
-    use rayon::prelude::*;
-    let mut kinds = vec![SealKind::Rows, SealKind::Features, SealKind::Loose];
-    if groups.is_some() {
-        kinds.push(SealKind::Groups);
-    }
-    // Each kind sorts, encodes, writes and syncs its file on a thread of
-    // its own; the list keeps the kinds' order.
-    kinds
-        .into_par_iter()
-        .map(|kind| {
-            let mut recs = match (kind, groups) {
-                (SealKind::Groups, Some(g)) => g.to_vec(),
-                _ => seal_records(test, kind),
-            };
-            seal::sort(&mut recs);
-            let file = format!("seal.{}.bin", kind.name());
-            let summary = io::write_streamed(&dir.join(&file), |out| seal::write_sorted(&recs, out))?;
-            Ok(SealFile {
-                kind,
-                file,
-                shareable: kind != SealKind::Rows,
-                records: recs.len() as u64,
-                bytes: summary.bytes,
-                blake3: summary.blake3,
-            })
-        })
-        .collect()
-}
-
-/// The records of one row-level seal kind.
-pub fn seal_records(test: &[(RowDigests, u64)], kind: SealKind) -> Vec<seal::SealRecord> {
-    test.iter().map(|(d, row)| (kind_digest(d, kind), *row)).collect()
-}
-
-/// A row's digest of one row-level seal kind.
-pub fn kind_digest(d: &RowDigests, kind: SealKind) -> crate::digest::RowDigest {
-    match kind {
-        SealKind::Rows => d.row,
-        SealKind::Features => d.features,
-        SealKind::Loose | SealKind::Groups => d.loose,
-    }
 }
 
 fn sync_dir(path: &Path) -> Result<()> {

@@ -5,35 +5,7 @@
 //! partition gets a row.
 
 use crate::error::{Error, Result};
-
-/// A partition of the split.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, serde::Serialize, serde::Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum Partition {
-    /// Training rows.
-    Train,
-    /// Validation rows (only with three shares).
-    Validation,
-    /// The sealed test rows.
-    Test,
-}
-
-impl Partition {
-    /// The partition's name, as in file names and the manifest.
-    pub fn name(self) -> &'static str {
-        match self {
-            Partition::Train => "train",
-            Partition::Validation => "validation",
-            Partition::Test => "test",
-        }
-    }
-}
-
-impl std::fmt::Display for Partition {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        f.write_str(self.name())
-    }
-}
+use crate::seal::manifest::Partition;
 
 /// The asked shares: two (train, test) or three (train, validation, test).
 #[derive(Debug, Clone, PartialEq, Eq)]

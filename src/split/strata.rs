@@ -23,6 +23,7 @@ use arrow_schema::DataType;
 use crate::digest::ValueEncoder;
 use crate::error::{Error, Result};
 use crate::io::ColumnType;
+use crate::seal::manifest::StratumColumn;
 use crate::split::memo::DictionaryMemo;
 
 enum Column {
@@ -48,18 +49,6 @@ enum Column {
 pub struct StrataBuilder {
     columns: Vec<Column>,
     bins: usize,
-}
-
-/// How one stratify column was used.
-#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct StratumColumn {
-    /// The column.
-    pub name: String,
-    /// Cut into quantile bins (numeric with more than `--bins` distinct values).
-    pub binned: bool,
-    /// Number of distinct strata this column contributes.
-    pub levels: u32,
 }
 
 /// The strata of a table: one id per row, ids ordered by label.

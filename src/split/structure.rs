@@ -22,116 +22,14 @@
 //!   keyed BLAKE3 hash of its digest and the seed, so it never moves when other
 //!   rows come or go; shares are then approximate.
 
-use arrow_array::cast::AsArray;
-use arrow_array::types::{
-    Date32Type, Int64Type, TimestampMicrosecondType, TimestampMillisecondType, TimestampNanosecondType,
-    TimestampSecondType,
-};
-use arrow_array::{Array, ArrayRef, Int32Array};
-use arrow_schema::{DataType, TimeUnit};
-use std::path::Path;
-
 use crate::digest::{DigestMap, RowDigest};
 use crate::error::{Error, Result};
-use crate::io::Batch;
 use crate::rng::SplitRng;
+use crate::seal::time::TimeKind;
+use crate::seal::time::MICROS_PER_DAY;
 use crate::split::memo::DictionaryMemo;
 use crate::split::{Ratios, Strata, DROPPED};
-use crate::value;
-
-/// What an order column holds.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum TimeKind {
-    /// Instants or local date-times, as microseconds since the epoch.
-    Timestamp,
-    /// Calendar dates, as microseconds since the epoch at midnight.
-    Date,
-    /// Plain integers (periods, sequence numbers).
-    Integer,
-}
-
-const MICROS_PER_DAY: i64 = 86_400_000_000;
-
-/// Reads the order column of a batch into comparable integers.
-///
-/// # Errors
-/// Nulls and values that are not times, dates or integers, naming the row.
-pub fn time_values(path: &Path, batch: &Batch, column: &str, out: &mut Vec<i64>) -> Result<TimeKind> {
-    let array: &ArrayRef = batch.data.column_by_name(column).expect("projected");
-    if let Some(i) = (0..array.len()).find(|&i| array.is_null(i)) {
-        return Err(batch.error_at(path, i, column, "has no value; every row needs a time to be ordered"));
-    }
-    let kind = match array.data_type() {
-        DataType::Timestamp(unit, _) => {
-            let per = match unit {
-                TimeUnit::Second => 1_000_000i64,
-                TimeUnit::Millisecond => 1_000,
-                TimeUnit::Microsecond => 1,
-                TimeUnit::Nanosecond => -1_000,
-            };
-            for i in 0..array.len() {
-                let v = match unit {
-                    TimeUnit::Second => array.as_primitive::<TimestampSecondType>().value(i),
-                    TimeUnit::Millisecond => array.as_primitive::<TimestampMillisecondType>().value(i),
-                    TimeUnit::Microsecond => array.as_primitive::<TimestampMicrosecondType>().value(i),
-                    TimeUnit::Nanosecond => array.as_primitive::<TimestampNanosecondType>().value(i),
-                };
-                let micros = if per > 0 { v.checked_mul(per) } else { Some(v.div_euclid(-per)) };
-                out.push(micros.ok_or_else(|| batch.error_at(path, i, column, "is out of range"))?);
-            }
-            TimeKind::Timestamp
-        }
-        DataType::Date32 | DataType::Date64 => {
-            let days = arrow_cast::cast(array, &DataType::Date32).map_err(|e| Error::Options(e.to_string()))?;
-            for v in days.as_primitive::<Date32Type>().values() {
-                out.push(*v as i64 * MICROS_PER_DAY);
-            }
-            TimeKind::Date
-        }
-        DataType::Int8
-        | DataType::Int16
-        | DataType::Int32
-        | DataType::Int64
-        | DataType::UInt8
-        | DataType::UInt16
-        | DataType::UInt32
-        | DataType::UInt64 => {
-            let ints = arrow_cast::cast(array, &DataType::Int64)
-                .map_err(|_| Error::Options(format!("--order-by: `{column}` holds integers beyond 64 bits")))?;
-            out.extend_from_slice(ints.as_primitive::<Int64Type>().values());
-            TimeKind::Integer
-        }
-        DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => {
-            // A text column: the first value that is not a time is the one to name.
-            let text = arrow_cast::cast(array, &DataType::Utf8).expect("text casts to text");
-            let text = text.as_string::<i32>();
-            for i in 0..text.len() {
-                let v = text.value(i);
-                if value::parse_timestamp(v).is_none()
-                    && value::parse_local_timestamp(v).is_none()
-                    && value::parse_date(v).is_none()
-                {
-                    return Err(batch.error_at(
-                        path,
-                        i,
-                        column,
-                        format!("`{}` is not a date, an RFC 3339 timestamp or an integer", value::shorten(v)),
-                    ));
-                }
-            }
-            return Err(Error::Options(format!(
-                "--order-by: `{column}` mixes dates and timestamps; give one kind of time"
-            )));
-        }
-        other => {
-            return Err(Error::Options(format!(
-                "--order-by: `{column}` has type {other}; it must hold timestamps, dates or integers"
-            )))
-        }
-    };
-    Ok(kind)
-}
+use arrow_array::Int32Array;
 
 /// Parses `--gap`: `7d`, `36h`, `90m`, `45s`, `2w` for times and dates
 /// (returned in microseconds), a plain number for integer order columns.
@@ -163,25 +61,6 @@ pub fn parse_gap(text: &str, kind: TimeKind) -> Result<i64> {
         (_, u) => return Err(Error::Options(format!("--gap `{text}`: unknown unit `{u}` (w, d, h, m, s)"))),
     };
     n.checked_mul(per).ok_or_else(|| Error::Options(format!("--gap `{text}` is too large")))
-}
-
-/// A time value as text: RFC 3339 (UTC), an ISO date, or the integer.
-pub fn format_time(v: i64, kind: TimeKind) -> String {
-    match kind {
-        TimeKind::Integer => v.to_string(),
-        TimeKind::Date => {
-            let mut out = Vec::new();
-            crate::digest::write_date(v.div_euclid(MICROS_PER_DAY), &mut out);
-            String::from_utf8(out).expect("ASCII")
-        }
-        TimeKind::Timestamp => {
-            let mut out = Vec::new();
-            let secs = v.div_euclid(1_000_000);
-            let nanos = (v.rem_euclid(1_000_000) * 1000) as u32;
-            crate::digest::write_timestamp(secs, nanos, true, &mut out);
-            String::from_utf8(out).expect("ASCII")
-        }
-    }
 }
 
 /// Entity groups: one id per row, numbered by first appearance.
@@ -541,7 +420,7 @@ mod tests {
             let mut plain = Groups::new();
             plain.push(&keys.iter().map(|&k| digest_of(k)).collect::<Vec<_>>());
             let mut memo = DictionaryMemo::new();
-            let values: ArrayRef = Arc::new(arrow_array::UInt8Array::from(dictionary.clone()));
+            let values: arrow_array::ArrayRef = Arc::new(arrow_array::UInt8Array::from(dictionary.clone()));
             memo.refresh(&values, ([0; 16], u32::MAX));
             for (slot, &v) in memo.slots.iter_mut().zip(&dictionary) {
                 slot.0 = [v; 16];

@@ -17,7 +17,6 @@ use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
 use crate::io::{ColumnType, Format};
-use crate::split::{Partition, StratumColumn};
 
 /// The manifest format this build writes and reads.
 pub const FORMAT_VERSION: u32 = 1;
@@ -242,7 +241,7 @@ pub struct OrderRecord {
     /// The order column.
     pub column: String,
     /// What it holds.
-    pub kind: crate::split::TimeKind,
+    pub kind: crate::seal::time::TimeKind,
     /// The gap in the column's units (microseconds for times and dates).
     pub gap: i64,
     /// Start time of each partition, in partition order.
@@ -273,7 +272,7 @@ pub struct GroupRecord {
 #[serde(deny_unknown_fields)]
 pub struct FoldRecord {
     /// How they were made.
-    pub kind: crate::split::FoldKind,
+    pub kind: crate::seal::manifest::FoldKind,
     /// Number of folds.
     pub k: u32,
     /// The column holding each development row's fold.
@@ -547,5 +546,75 @@ pub fn parse_pin(text: &str) -> Result<String> {
         Ok(t.to_ascii_lowercase())
     } else {
         Err(Error::Options(format!("--expect-manifest `{text}` is not a 64-digit hexadecimal BLAKE3 checksum")))
+    }
+}
+
+/// A partition of the split.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Partition {
+    /// Training rows.
+    Train,
+    /// Validation rows (only with three shares).
+    Validation,
+    /// The sealed test rows.
+    Test,
+}
+
+impl Partition {
+    /// The partition's name, as in file names and the manifest.
+    pub fn name(self) -> &'static str {
+        match self {
+            Partition::Train => "train",
+            Partition::Validation => "validation",
+            Partition::Test => "test",
+        }
+    }
+}
+
+impl std::fmt::Display for Partition {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+/// How one stratify column was used.
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct StratumColumn {
+    /// The column.
+    pub name: String,
+    /// Cut into quantile bins (numeric with more than `--bins` distinct values).
+    pub binned: bool,
+    /// Number of distinct strata this column contributes.
+    pub levels: u32,
+}
+
+/// The kind of folds made, as the manifest records it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum FoldKind {
+    /// Plain k-fold.
+    KFold,
+    /// Stratified k-fold.
+    Stratified,
+    /// Grouped k-fold (groups whole).
+    Grouped,
+    /// Leave-one-out (rows, or groups).
+    LeaveOneOut,
+    /// Rolling-origin blocks in time order.
+    RollingOrigin,
+}
+
+impl FoldKind {
+    /// The method's usual name.
+    pub fn name(self) -> &'static str {
+        match self {
+            FoldKind::KFold => "k-fold",
+            FoldKind::Stratified => "stratified k-fold",
+            FoldKind::Grouped => "grouped k-fold",
+            FoldKind::LeaveOneOut => "leave-one-out",
+            FoldKind::RollingOrigin => "rolling origin",
+        }
     }
 }

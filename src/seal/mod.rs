@@ -1,11 +1,27 @@
-//! The seal's digest files.
+//! The seal: what a split wrote and the proof of it. [`manifest`] (its types, checksum and strict
+//! loading), the seal's digest files (here), the hand-off's row ids ([`handoff`]), time columns as
+//! the seal records them ([`time`]) and [`verify`], which re-checks a sealed folder.
+//!
+//! The seal's digest files:
 //!
 //! A seal file is a plain sequence of 24-byte records, sorted: a 16-byte
 //! digest, then the 1-based data row of the test partition it came from as a
 //! 64-bit little-endian integer. Sorted records make the content digest
 //! reproducible from the file and let `check` find a digest by binary search.
 
+pub mod handoff;
+pub mod manifest;
+pub mod time;
+pub mod verify;
+
 use crate::digest::RowDigest;
+use crate::digest::RowDigests;
+use crate::error::Result;
+use crate::io;
+use crate::seal;
+use crate::seal::manifest::SealFile;
+use crate::seal::manifest::SealKind;
+use std::path::Path;
 
 /// Bytes per record.
 pub const RECORD_BYTES: usize = 24;
@@ -67,6 +83,59 @@ pub fn records(bytes: &[u8]) -> impl Iterator<Item = SealRecord> + '_ {
         let digest: RowDigest = chunk[..16].try_into().expect("16 bytes");
         (digest, u64::from_le_bytes(chunk[16..].try_into().expect("8 bytes")))
     })
+}
+
+/// Writes the seal files of the test partition: rows, features and loose
+/// digests, and with groups one record per test group.
+///
+/// # Errors
+/// Disk failures.
+pub fn write_seal(
+    dir: &Path,
+    test: &[(RowDigests, u64)],
+    groups: Option<&[seal::SealRecord]>,
+) -> Result<Vec<SealFile>> {
+    use rayon::prelude::*;
+    let mut kinds = vec![SealKind::Rows, SealKind::Features, SealKind::Loose];
+    if groups.is_some() {
+        kinds.push(SealKind::Groups);
+    }
+    // Each kind sorts, encodes, writes and syncs its file on a thread of
+    // its own; the list keeps the kinds' order.
+    kinds
+        .into_par_iter()
+        .map(|kind| {
+            let mut recs = match (kind, groups) {
+                (SealKind::Groups, Some(g)) => g.to_vec(),
+                _ => seal_records(test, kind),
+            };
+            seal::sort(&mut recs);
+            let file = format!("seal.{}.bin", kind.name());
+            let summary = io::write_streamed(&dir.join(&file), |out| seal::write_sorted(&recs, out))?;
+            Ok(SealFile {
+                kind,
+                file,
+                shareable: kind != SealKind::Rows,
+                records: recs.len() as u64,
+                bytes: summary.bytes,
+                blake3: summary.blake3,
+            })
+        })
+        .collect()
+}
+
+/// The records of one row-level seal kind.
+pub fn seal_records(test: &[(RowDigests, u64)], kind: SealKind) -> Vec<seal::SealRecord> {
+    test.iter().map(|(d, row)| (kind_digest(d, kind), *row)).collect()
+}
+
+/// A row's digest of one row-level seal kind.
+pub fn kind_digest(d: &RowDigests, kind: SealKind) -> crate::digest::RowDigest {
+    match kind {
+        SealKind::Rows => d.row,
+        SealKind::Features => d.features,
+        SealKind::Loose | SealKind::Groups => d.loose,
+    }
 }
 
 #[cfg(test)]

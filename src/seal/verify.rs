@@ -22,9 +22,10 @@ use rayon::prelude::*;
 use crate::digest::{content_digest, DigestKey, DigestSpec, GroupSpec, RowDigests};
 use crate::error::Result;
 use crate::io::{self, Table, TypeHints};
-use crate::manifest::{self, SealKind};
 use crate::seal;
-use crate::split::{kind_digest, Partition};
+use crate::seal::kind_digest;
+use crate::seal::manifest::Partition;
+use crate::seal::manifest::{self, SealKind};
 
 /// One thing that differs from the seal.
 #[derive(Debug, Clone, PartialEq, Eq, serde::Serialize)]
