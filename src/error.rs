@@ -89,6 +89,17 @@ pub enum Error {
     #[error("{0}")]
     Options(String),
 
+    /// A sealed folder that does not verify: nothing is scored against it.
+    #[error("`{}` does not verify ({count} problem(s), first: {first}); refusing to score against it", path.display())]
+    SealBroken {
+        /// The folder.
+        path: PathBuf,
+        /// How many problems `verify` found.
+        count: usize,
+        /// The first of them, as `file: what`.
+        first: String,
+    },
+
     /// A manifest that cannot be read or trusted.
     #[error("`{}`: {what}", path.display())]
     Manifest {

@@ -9,11 +9,13 @@
 use std::collections::BTreeMap;
 use std::path::Path;
 
-/// Each room and the rooms it may use. Data flows one way: the leaves, then `io` and `digest`
-/// (neither knows the other), then `seal`, then the three stages, then the command line.
+/// Each room and the rooms it may use, each listed after every room it uses. Data flows one way:
+/// the leaves (`format`, `error`, `value`, `rng`), then `io` and `digest` (neither knows the
+/// other), then `seal`, then the three stages (`split`, `check`, `score`: none knows another),
+/// then the command line.
 const ROOMS: &[(&str, &[&str])] = &[
-    ("error", &[]),
-    ("format", &["error"]),
+    ("format", &[]),
+    ("error", &["format"]),
     ("value", &["error"]),
     ("rng", &[]),
     ("io", &["error", "format", "value"]),

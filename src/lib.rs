@@ -21,7 +21,6 @@ pub mod digest;
 pub mod error;
 pub mod format;
 pub mod io;
-pub mod ledger;
 pub mod rng;
 pub mod score;
 pub mod seal;

@@ -3,6 +3,7 @@
 
 mod check;
 mod keygen;
+mod ledger;
 mod output;
 mod score;
 mod show;
@@ -36,7 +37,7 @@ enum Command {
     /// Score predictions on the sealed test set and record it in the ledger.
     Score(score::ScoreArgs),
     /// List the scorings of a sealed test set and verify the ledger's chain.
-    Ledger(score::LedgerArgs),
+    Ledger(ledger::Args),
 }
 
 /// What a command ended with.
@@ -64,8 +65,8 @@ pub fn main() -> ExitCode {
         Command::Show(args) => show::run(args),
         Command::Check(args) => check::run(args),
         Command::Keygen(args) => keygen::run(args),
-        Command::Score(args) => score::run_score(args),
-        Command::Ledger(args) => score::run_ledger(args),
+        Command::Score(args) => score::run(args),
+        Command::Ledger(args) => ledger::run(args),
     };
     match result {
         Ok(Outcome::Ok) => ExitCode::SUCCESS,
