@@ -49,7 +49,12 @@ pub(crate) fn write_year(y: i64, out: &mut Vec<u8>) {
     if y < 0 {
         out.push(b'-');
     }
-    push_padded(out, y.unsigned_abs() as u32, 4);
+    // Every digit of the year: a year past 2^32 (a timestamp of seconds near the ends of i64)
+    // must not wrap onto another.
+    match u32::try_from(y.unsigned_abs()) {
+        Ok(abs) => push_padded(out, abs, 4),
+        Err(_) => out.extend_from_slice(itoa::Buffer::new().format(y.unsigned_abs()).as_bytes()),
+    }
 }
 
 /// `YYYY-MM-DD` of days since the epoch.
@@ -115,5 +120,26 @@ pub fn write_timestamp(secs: i64, nanos: u32, zoned: bool, out: &mut Vec<u8>) {
     }
     if zoned {
         out.push(b'Z');
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::{civil_from_days, write_date};
+
+    /// Years past 2^32 (reachable from timestamps of seconds) keep every digit: two dates 2^32
+    /// years apart must not write the same text, or their rows would share a digest.
+    #[test]
+    fn years_past_two_to_the_32_keep_every_digit() {
+        for days in [1_600_000_000_000i64, -1_600_000_000_000, 106_751_991_167_300] {
+            let (year, month, day) = civil_from_days(days);
+            assert!(year.unsigned_abs() > u32::MAX as u64, "{year}");
+            let mut text = Vec::new();
+            write_date(days, &mut text);
+            assert_eq!(String::from_utf8(text).unwrap(), format!("{year}-{month:02}-{day:02}"));
+        }
+        let mut near = Vec::new();
+        write_date(-1, &mut near);
+        assert_eq!(near, b"1969-12-31");
     }
 }

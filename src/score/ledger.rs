@@ -117,10 +117,16 @@ impl Ledger {
     }
 }
 
+/// Whether `text` is a BLAKE3 hash as the ledger writes them: 64 lowercase hexadecimal digits.
+fn is_hash(text: &str) -> bool {
+    text.len() == 64 && text.bytes().all(|b| b.is_ascii_digit() || (b'a'..=b'f').contains(&b))
+}
+
 /// Reads and checks `DIR/ledger.jsonl` (absent: an empty ledger).
 ///
 /// # Errors
-/// Only when the file exists but cannot be read.
+/// When the file exists but cannot be read, or an entry's `entry` or `previous` is not a hash
+/// (a broken chain is not an error: it is reported in [`Ledger::problems`]).
 pub fn read(dir: &Path, expect_head: Option<&str>) -> Result<Ledger> {
     let path = dir.join(FILE_NAME);
     let text = match std::fs::read_to_string(&path) {
@@ -141,6 +147,15 @@ pub fn read(dir: &Path, expect_head: Option<&str>) -> Result<Ledger> {
                 continue;
             }
         };
+        for (field, value) in [("entry", &e.entry), ("previous", &e.body.previous)] {
+            if !is_hash(value) {
+                return Err(Error::at_line(
+                    &path,
+                    n,
+                    format!("`{field}` `{}` is not a 64-digit BLAKE3 hash", crate::value::shorten(value)),
+                ));
+            }
+        }
         if e.body.hash() != e.entry || serde_json::to_string(&e).ok().as_deref() != Some(line) {
             problem(format!("entry {n} (`{}`) was edited: its contents no longer hash to its entry hash", e.body.name));
         }

@@ -193,9 +193,13 @@ pub fn run(opts: &ScoreOptions) -> Result<Scoring> {
         manifest: loaded.recorded.clone(),
         previous: ledger.head(),
     };
+    // Every earlier submission of this metric is read and checked before anything is written, so
+    // that a bad stored file refuses the scoring instead of failing after the entry was appended.
+    let mut earlier = stored_of(&dir, &ledger, &truth, metric)?;
     let entry = ledger::append(&dir, &ledger, body, &stored_bytes)?;
     let ledger = ledger::read(&dir, Some(&entry.entry))?;
-    let best = best_of(&dir, &ledger, &truth, metric)?;
+    earlier.push((preds, positive));
+    let best = best_from(&ledger, &truth, metric, &earlier);
     Ok(Scoring::Scored(ScoreReport {
         name,
         metric,
@@ -233,17 +237,33 @@ pub fn bests(loaded: &LoadedManifest, ledger: &Ledger) -> Result<Vec<(Metric, Be
 
 /// The best of the submissions scored with `metric`, once there are two or more.
 fn best_of(dir: &Path, ledger: &Ledger, truth: &Truth, metric: Metric) -> Result<Option<Best>> {
-    let same: Vec<&ledger::Entry> = ledger.entries.iter().filter(|e| e.body.metric == metric.name()).collect();
-    if same.len() < 2 {
+    if ledger.entries.iter().filter(|e| e.body.metric == metric.name()).count() < 2 {
         return Ok(None);
     }
-    let mut preds: Vec<(Predictions, Option<u32>)> = Vec::new();
-    for e in &same {
+    let preds = stored_of(dir, ledger, truth, metric)?;
+    Ok(best_from(ledger, truth, metric, &preds))
+}
+
+/// The stored predictions of every entry scored with `metric`, in ledger order, each checked
+/// against the labels, with its positive class.
+fn stored_of(dir: &Path, ledger: &Ledger, truth: &Truth, metric: Metric) -> Result<Vec<(Predictions, Option<u32>)>> {
+    let mut preds = Vec::new();
+    for e in ledger.entries.iter().filter(|e| e.body.metric == metric.name()) {
         let path = dir.join(&e.body.stored);
         let bytes = std::fs::read(&path).map_err(|err| Error::io(&path, "cannot read", err))?;
         let p = decode_predictions(&bytes, truth, metric).map_err(|m| Error::malformed(&e.body.stored, m))?;
         let pos = positive_class(truth, metric, e.body.positive.as_deref())?;
         preds.push((p, pos));
+    }
+    Ok(preds)
+}
+
+/// The best of `preds` (the stored predictions of the entries scored with `metric`, in ledger
+/// order), once there are two or more.
+fn best_from(ledger: &Ledger, truth: &Truth, metric: Metric, preds: &[(Predictions, Option<u32>)]) -> Option<Best> {
+    let same: Vec<&ledger::Entry> = ledger.entries.iter().filter(|e| e.body.metric == metric.name()).collect();
+    if same.len() < 2 || same.len() != preds.len() {
+        return None;
     }
     let n = truth.len();
     let all: Vec<u32> = (0..n as u32).collect();
@@ -262,5 +282,5 @@ fn best_of(dir: &Path, ledger: &Ledger, truth: &Truth, metric: Metric) -> Result
     });
     let value = full[best];
     let corrected = if higher { value - optimism } else { value + optimism };
-    Ok(Some(Best { name: same[best].body.name.clone(), value, optimism, corrected, of: same.len() }))
+    Some(Best { name: same[best].body.name.clone(), value, optimism, corrected, of: same.len() })
 }

@@ -502,6 +502,20 @@ pub fn load(path: &Path) -> Result<LoadedManifest> {
     let computed = blake3::hash(&text.as_bytes()[..body_end]).to_hex().to_string();
     let manifest: Manifest =
         serde_norway::from_str(text).map_err(|e| manifest_err(&path, format!("cannot be parsed: {e}")))?;
+    let names: Vec<Partition> = manifest.partitions.iter().map(|p| p.name).collect();
+    if !matches!(
+        names.as_slice(),
+        [Partition::Train, Partition::Test] | [Partition::Train, Partition::Validation, Partition::Test]
+    ) {
+        let listed: Vec<&str> = names.iter().map(|p| p.name()).collect();
+        return Err(manifest_err(
+            &path,
+            format!(
+                "lists the partitions [{}]; a split has train, validation (optional) and test, in that order",
+                listed.join(", ")
+            ),
+        ));
+    }
     if manifest.format_version != FORMAT_VERSION {
         return Err(manifest_err(
             &path,

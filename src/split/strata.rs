@@ -182,7 +182,8 @@ impl StrataBuilder {
                         // Keep exact value identities while they may still be few.
                         if distinct.len() <= bins {
                             if let Some(v) = values.last().copied().flatten() {
-                                distinct.insert(v.to_bits());
+                                // NaN is one value however its bits read (one stratum, one encoding).
+                                distinct.insert(if v.is_nan() { f64::NAN.to_bits() } else { v.to_bits() });
                             }
                             key.clear();
                             encoder.write(row, &mut key);
@@ -276,7 +277,9 @@ fn quantile_bins(name: &str, values: &[Option<f64>], k: usize) -> ColumnCodes {
     let mut sorted: Vec<f64> = values.iter().flatten().copied().filter(|v| !v.is_nan()).collect();
     sorted.sort_by(f64::total_cmp);
     let n = sorted.len();
-    let mut cuts: Vec<f64> = (1..k).map(|j| sorted[(j * n).div_ceil(k) - 1]).collect();
+    // No number at all (only NaN and null): no cut, one bin.
+    let mut cuts: Vec<f64> =
+        if n == 0 { Vec::new() } else { (1..k).map(|j| sorted[(j * n).div_ceil(k) - 1]).collect() };
     cuts.dedup();
     let nbins = cuts.len() + 1;
     let (nan_code, null_code) = (nbins as u32, nbins as u32 + 1);

@@ -4,6 +4,7 @@ mod bad_input;
 mod check;
 mod formats;
 mod golden;
+mod hand_made;
 mod reference;
 mod score;
 mod split;
