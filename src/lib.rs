@@ -6,14 +6,15 @@
 //! The library never prints, reads the environment or the clock: the
 //! command line ([`cli`]) does that and passes time and seed in.
 //!
+//! The rooms, in the order data flows (DEVELOPERS.md has the arrows):
+//! - [`format`], [`error`], [`value`], [`rng`]: the leaves;
 //! - [`io`]: formats, streamed as Arrow record batches;
-//! - [`value`] and [`digest`]: what "the same row" means;
+//! - [`digest`]: what "the same row" means;
+//! - [`seal`]: the manifest, the seal files, the hand-off's row ids and [`seal::verify`];
 //! - [`split`]: shares, strata, the seeded assignment and the split itself;
-//! - [`manifest`] and [`seal`]: what a split wrote and the seal over it;
-//! - [`verify`]: whether a sealed folder still matches;
-//! - [`check`]: later training files against the seal.
-
-#![warn(missing_docs)]
+//! - [`check`]: later training files against the seal;
+//! - [`score`]: predictions scored on the sealed test set, and the ledger;
+//! - [`cli`]: the command line.
 
 pub mod check;
 pub mod cli;

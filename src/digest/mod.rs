@@ -4,7 +4,7 @@
 //! canonical encoding of the row's key columns. The encoding is by meaning,
 //! not storage, so a row digests the same from CSV, Parquet, Arrow or JSON
 //! Lines, with its columns in any order and other columns beside it.
-//! Encoding `cleave-row-v1`, in full (DEVELOPERS.md repeats it; the vectors in
+//! Encoding `cleave-row-v1`, in full (docs/format.md repeats it; the vectors in
 //! `fixtures/digest-vectors.csv` pin it):
 //!
 //! - Columns: the feature columns sorted by name (byte order), then the label

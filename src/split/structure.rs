@@ -1,7 +1,7 @@
 //! Splits that respect the data's structure: entity groups, time order with
 //! an embargo gap, and stable (hash-based) assignment.
 //!
-//! The rules, as DEVELOPERS.md repeats them:
+//! The rules, as docs/format.md repeats them:
 //! - **Groups** (`--group`): rows with equal group values (compared by their
 //!   canonical encoding) share a partition. Groups are taken in a seeded
 //!   random order and each goes to the partition it brings closest to the

@@ -27,42 +27,14 @@ use arrow_array::{ArrayRef, RecordBatch};
 use arrow_schema::{DataType, Field, Schema};
 
 use crate::digest::{self, DigestKey, DigestSpec, GroupSpec, RowDigest};
+pub mod kind;
+
+pub use self::kind::{Kind, KindInfo, KINDS};
 use crate::error::{Error, Result};
 use crate::io::{self, Batch, ColumnType, Format, Table, TypeHints};
 use crate::seal::manifest::{self, LoadedManifest, SealKind};
 use crate::seal::time::time_values;
 use crate::seal::{self, SealRecord};
-
-/// A kind of finding.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
-pub enum Kind {
-    /// Equal to a sealed test row, label included.
-    Row,
-    /// Same features as a sealed test row.
-    Features,
-    /// Equal after normalisation.
-    Near,
-    /// A sealed test group key.
-    Group,
-    /// In the test period.
-    Time,
-}
-
-impl Kind {
-    /// All kinds, in report order.
-    pub const ALL: [Kind; 5] = [Kind::Row, Kind::Features, Kind::Near, Kind::Group, Kind::Time];
-
-    /// The kind's name in reports.
-    pub fn name(self) -> &'static str {
-        match self {
-            Kind::Row => "row",
-            Kind::Features => "features",
-            Kind::Near => "near",
-            Kind::Group => "group",
-            Kind::Time => "time",
-        }
-    }
-}
 
 /// One flagged row.
 #[derive(Debug, Clone, PartialEq, Eq)]
