@@ -2,8 +2,8 @@
 //! scorings and ledger reads on the demo data, each command's exit code, stdout and stderr and
 //! the BLAKE3 of every file it wrote, compared line by line with `fixtures/golden/outputs.txt`.
 //!
-//! A change of layout or speed must leave this transcript unchanged. A change that is meant to
-//! change an output (a new field, a new assignment version) rewrites the transcript with
+//! A change of layout or speed must leave this file unchanged. A change that is meant to
+//! change an output (a new field, a new assignment version) rewrites the file with
 //! `CLEAVE_GOLDEN_WRITE=1 cargo test --release golden` and shows the difference in review.
 
 use std::fmt::Write as _;
@@ -212,7 +212,7 @@ fn files_of(dir: &Path, prefix: &str, out: &mut Vec<(String, String)>) {
     }
 }
 
-fn transcript() -> String {
+fn pinned_outputs() -> String {
     let t = Test::new();
     t.demo();
     t.write("key.hex", format!("{KEY}\n"));
@@ -247,9 +247,9 @@ fn transcript() -> String {
 
 #[test]
 #[allow(clippy::disallowed_methods)] // a test may read the environment
-fn every_output_of_every_command_matches_the_pinned_transcript() {
+fn every_output_of_every_command_matches_the_pinned_outputs() {
     let path = fixture("golden/outputs.txt");
-    let got = transcript();
+    let got = pinned_outputs();
     if std::env::var_os("CLEAVE_GOLDEN_WRITE").is_some() {
         std::fs::create_dir_all(path.parent().unwrap()).unwrap();
         std::fs::write(&path, &got).unwrap();
@@ -257,9 +257,9 @@ fn every_output_of_every_command_matches_the_pinned_transcript() {
     }
     let want = std::fs::read_to_string(&path).expect("fixtures/golden/outputs.txt");
     for (i, (g, w)) in got.lines().zip(want.lines()).enumerate() {
-        assert_eq!(g, w, "transcript line {} differs", i + 1);
+        assert_eq!(g, w, "outputs line {} differs", i + 1);
     }
-    assert_eq!(got.lines().count(), want.lines().count(), "transcript length differs");
-    // A transcript of failures would pin nothing: every split, verify and scoring here succeeds.
+    assert_eq!(got.lines().count(), want.lines().count(), "outputs length differs");
+    // A record of failures would pin nothing: every split, verify and scoring here succeeds.
     assert!(!want.contains("exit 2"), "a pinned command failed");
 }
