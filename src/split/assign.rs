@@ -1,0 +1,172 @@
+//! Assignment: every row's partition and fold, from what pass one learnt.
+//! Time order, a stable hash, groups, or strata decide, in that order of
+//! precedence; folds are then dealt over the development rows.
+
+use super::config::{Opened, SplitConfig};
+use super::folds;
+use super::pass_one::RowFacts;
+use super::ratio::Ratios;
+use super::strata::Strata;
+use super::structure::{self, parse_gap, TimePlan};
+use super::DROPPED;
+use crate::error::{Error, Result};
+use crate::rng::SplitRng;
+use crate::seal::manifest::{FoldKind, Partition, ShortStratum};
+
+/// Every row's partition and fold, and what the split reports of them.
+pub(super) struct Assignment {
+    /// The partitions, train first, test last.
+    pub(super) partitions: Vec<Partition>,
+    /// Every row's partition index, or [`DROPPED`].
+    pub(super) partition: Vec<u8>,
+    /// The time plan, for splits in time order.
+    pub(super) time_plan: Option<TimePlan>,
+    /// The gap in the order column's units (0 without `--gap`).
+    pub(super) gap: i64,
+    /// Rows per partition of each stratum.
+    pub(super) counts: Vec<Vec<u64>>,
+    /// Rows per partition.
+    pub(super) totals: Vec<u64>,
+    /// Every row's fold ([`super::NO_FOLD`] outside them), their kind and count.
+    pub(super) folds: Option<(Vec<u32>, FoldKind, u32)>,
+    /// Strata too small to reach every partition.
+    pub(super) short: Vec<ShortStratum>,
+    /// Warnings for the user, one per short stratum.
+    pub(super) warnings: Vec<String>,
+}
+
+impl Assignment {
+    /// Index of the test partition (the last).
+    pub(super) fn test_index(&self) -> usize {
+        self.partitions.len() - 1
+    }
+}
+
+/// Decides every row's partition and fold.
+///
+/// # Errors
+/// A gap that does not parse for the order column, a partition left empty,
+/// and more folds than development rows or groups.
+pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Result<Assignment> {
+    let rows = facts.rows;
+    let strata = &facts.strata;
+    let partitions = cfg.ratios.partitions().to_vec();
+    let k = partitions.len();
+    let gap = match (&cfg.gap, &facts.times) {
+        (Some(g), Some((_, kind))) => parse_gap(g, *kind)?,
+        _ => 0,
+    };
+    let mut time_plan = None;
+    let partition: Vec<u8> = if let Some((times, _)) = &facts.times {
+        let plan = structure::assign_time(times, facts.groups.as_ref(), &cfg.ratios, gap)?;
+        let p = plan.partition.clone();
+        time_plan = Some(plan);
+        p
+    } else if cfg.stable {
+        match &facts.groups {
+            Some(groups) => {
+                let per_group = structure::assign_stable(&groups.digests, &cfg.ratios, cfg.seed);
+                groups.row_group.iter().map(|&g| per_group[g as usize]).collect()
+            }
+            None => structure::assign_stable(facts.stable_keys.as_deref().expect("stable keys"), &cfg.ratios, cfg.seed),
+        }
+    } else if let Some(groups) = &facts.groups {
+        structure::assign_grouped(groups, strata, &cfg.ratios, cfg.seed)
+    } else {
+        stratified(strata, &cfg.ratios, cfg.seed).partition
+    };
+    let counts = tally(strata, &partition, k);
+    let totals: Vec<u64> = (0..k).map(|p| counts.iter().map(|c| c[p]).sum::<u64>()).collect();
+    if let Some(p) = totals.iter().position(|&t| t == 0) {
+        return Err(Error::Options(format!(
+            "too few rows: {rows} rows at --ratios {} leave the {} partition empty",
+            cfg.ratios.text().join(","),
+            partitions[p]
+        )));
+    }
+    let test_index = k - 1;
+    let folds = match &cfg.folds {
+        Some((count, _)) => {
+            let dev: Vec<bool> = partition.iter().map(|&p| p != DROPPED && (p as usize) < test_index).collect();
+            let times = facts.times.as_ref().map(|(t, _)| t.as_slice());
+            Some(folds::assign(&dev, *count, strata, facts.groups.as_ref(), times, cfg.seed)?)
+        }
+        None => None,
+    };
+
+    let mut warnings = Vec::new();
+    let mut short = Vec::new();
+    if !opened.stratify.is_empty() {
+        for (s, c) in counts.iter().enumerate() {
+            let missing: Vec<Partition> = partitions.iter().zip(c).filter(|(_, &c)| c == 0).map(|(p, _)| *p).collect();
+            if !missing.is_empty() {
+                warnings.push(format!(
+                    "stratum `{}` has {} row(s), too few to reach every partition: none in {}",
+                    strata.labels[s],
+                    strata.sizes[s],
+                    missing.iter().map(|p| p.name()).collect::<Vec<_>>().join(", ")
+                ));
+                short.push(ShortStratum {
+                    stratum: strata.labels[s].clone(),
+                    rows: strata.sizes[s],
+                    missing_from: missing,
+                });
+            }
+        }
+    }
+    Ok(Assignment { partitions, partition, time_plan, gap, counts, totals, folds, short, warnings })
+}
+
+/// Rows per partition of each stratum (left-out rows not counted).
+pub(super) fn tally(strata: &Strata, partition: &[u8], k: usize) -> Vec<Vec<u64>> {
+    let mut counts = vec![vec![0u64; k]; strata.sizes.len()];
+    for (row, &p) in partition.iter().enumerate() {
+        if p != DROPPED {
+            counts[strata.row_stratum[row] as usize][p as usize] += 1;
+        }
+    }
+    counts
+}
+
+/// Every row's partition.
+pub(super) struct Plan {
+    /// Partition index (into the ratios' partitions) of every row.
+    pub(super) partition: Vec<u8>,
+}
+
+/// Decides every row's partition: strata in label order, each shared out by
+/// largest remainder, its rows (in input order) shuffled once and dealt out
+/// train first, then validation, then test.
+pub(super) fn stratified(strata: &Strata, ratios: &Ratios, seed: u64) -> Plan {
+    let n_strata = strata.sizes.len();
+    // Rows grouped by stratum, in input order within each (a counting sort).
+    let mut offsets = vec![0usize; n_strata + 1];
+    for &s in &strata.row_stratum {
+        offsets[s as usize + 1] += 1;
+    }
+    for i in 0..n_strata {
+        offsets[i + 1] += offsets[i];
+    }
+    let mut fill = offsets.clone();
+    let mut grouped = vec![0u32; strata.row_stratum.len()];
+    for (row, &s) in strata.row_stratum.iter().enumerate() {
+        grouped[fill[s as usize]] = row as u32;
+        fill[s as usize] += 1;
+    }
+    let mut rng = SplitRng::new(seed);
+    let mut done = vec![0u64; ratios.partitions().len()];
+    let mut partition = vec![0u8; strata.row_stratum.len()];
+    for s in 0..n_strata {
+        let rows = &mut grouped[offsets[s]..offsets[s + 1]];
+        let c = ratios.allocate(rows.len() as u64, &mut done);
+        rng.shuffle(rows);
+        let mut at = 0usize;
+        for (p, &k) in c.iter().enumerate() {
+            for &row in &rows[at..at + k as usize] {
+                partition[row as usize] = p as u8;
+            }
+            at += k as usize;
+        }
+    }
+    Plan { partition }
+}

@@ -1,0 +1,167 @@
+//! Pass one: what decides every row's partition, read column by column.
+
+use arrow_array::cast::AsArray;
+use arrow_array::types::Int32Type;
+use arrow_array::ArrayRef;
+
+use super::config::{Opened, SplitConfig};
+use super::memo::DictionaryMemo;
+use super::strata::{self, Strata, StrataBuilder};
+use super::structure::Groups;
+use crate::digest::{GroupSpec, RowDigest};
+use crate::error::{Error, Result};
+use crate::io::{self, Format};
+use crate::seal::time::{time_values, TimeKind};
+
+/// What the first pass learns about every row.
+pub(super) struct RowFacts {
+    /// Data rows.
+    pub(super) rows: u64,
+    /// Every row's stratum (one stratum without `--stratify`).
+    pub(super) strata: Strata,
+    /// Every row's group, with `--group`.
+    pub(super) groups: Option<Groups>,
+    /// Every row's time, with `--order-by`.
+    pub(super) times: Option<(Vec<i64>, TimeKind)>,
+    /// Row digests, for `--stable` without groups.
+    pub(super) stable_keys: Option<Vec<RowDigest>>,
+}
+
+/// Pass one: reads only the columns that decide partitions (stratify, group
+/// and order columns; the key columns for `--stable` without groups).
+///
+/// # Errors
+/// Malformed input, no data rows, more rows than a split holds, and a
+/// group column that is entirely null.
+pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFacts> {
+    let (table, format, spec) = (&opened.table, opened.format, &opened.spec);
+    let (stratify, group) = (opened.stratify_types.as_slice(), opened.group.as_slice());
+    let kept = opened.kept.take();
+    let mut needed: Vec<String> = stratify.iter().map(|(n, _)| n.clone()).collect();
+    needed.extend(group.iter().cloned());
+    needed.extend(cfg.order_by.iter().cloned());
+    let stable_rows = cfg.stable && group.is_empty();
+    if stable_rows {
+        needed.extend(spec.columns());
+    }
+    if needed.is_empty() && format != Format::Csv {
+        needed.push(table.schema().field(0).name().clone());
+    }
+    let mut strata_builder = (!stratify.is_empty()).then(|| StrataBuilder::new(stratify, cfg.bins));
+    let group_spec = (!group.is_empty()).then(|| GroupSpec::new(group, cfg.digest_key.as_ref()));
+    let mut groups = group_spec.as_ref().map(|_| Groups::new());
+    let mut group_seen = vec![false; group.len()];
+    let mut times: Option<(Vec<i64>, Option<TimeKind>)> = cfg.order_by.as_ref().map(|_| (Vec::new(), None));
+    let mut stable_keys = stable_rows.then(Vec::new);
+    // The rows come from the kept CSV text or from a reading pass.
+    // Text columns of strata and of a one-column group key come as
+    // dictionaries where the file has them: their values are encoded and
+    // digested once per dictionary, not once per row.
+    let mut dictionaries: Vec<String> = Vec::new();
+    if !stable_rows {
+        dictionaries.extend(stratify.iter().filter(|(_, t)| !t.is_numeric()).map(|(n, _)| n.clone()));
+        if let [column] = group {
+            dictionaries.push(column.clone());
+        }
+        dictionaries.retain(|n| cfg.order_by.as_ref() != Some(n));
+    }
+    let mut group_memo = DictionaryMemo::new();
+    let mut batches = match &kept {
+        Some(_) => None,
+        None => Some(table.batches_keeping_dictionaries(Some(&needed), false, &dictionaries)?.read_ahead()),
+    };
+    let mut kept_at = 0usize;
+    let mut next_batch = || -> Result<Option<io::Batch>> {
+        match (&mut batches, &kept) {
+            (Some(b), _) => b.next_batch(),
+            (None, Some(k)) if kept_at < k.rows() => {
+                let hi = (kept_at + io::BATCH_ROWS).min(k.rows());
+                let batch = table.kept_batch(k, kept_at, hi)?;
+                kept_at = hi;
+                Ok(Some(batch))
+            }
+            (None, _) => Ok(None),
+        }
+    };
+    // A batch's group digests are taken (across threads) while those of the
+    // batch before are numbered and its strata collected (on one thread):
+    // numbering keeps row order, and no step waits for the other's end.
+    let mut pending: Vec<RowDigest> = Vec::new();
+    let mut fresh: Vec<RowDigest> = Vec::new();
+    let mut rows = 0u64;
+    while let Some(batch) = next_batch()? {
+        rows += batch.data.num_rows() as u64;
+        let dictionary = match group {
+            [column] if group_spec.is_some() => batch
+                .data
+                .column_by_name(column)
+                .and_then(|c| c.as_dictionary_opt::<Int32Type>())
+                .filter(|d| d.values().null_count() == 0),
+            _ => None,
+        };
+        let in_order = || -> Result<()> {
+            if let Some(b) = strata_builder.as_mut() {
+                let arrays: Vec<ArrayRef> =
+                    stratify.iter().map(|(s, _)| batch.data.column_by_name(s).expect("projected").clone()).collect();
+                b.push(&arrays)?;
+            }
+            if let (Some(spec), Some(groups)) = (&group_spec, groups.as_mut()) {
+                groups.push(&pending);
+                pending.clear();
+                if let Some(d) = dictionary {
+                    if !group_memo.refresh(d.values(), ([0; 16], u32::MAX)) {
+                        let values = spec.dictionary_digests(d.values())?;
+                        for (slot, digest) in group_memo.slots.iter_mut().zip(values) {
+                            slot.0 = digest;
+                        }
+                    }
+                    groups.push_keys(d.keys(), &mut group_memo);
+                }
+            }
+            Ok(())
+        };
+        let digested = || -> Result<()> {
+            if let Some(spec) = &group_spec {
+                fresh.clear();
+                if dictionary.is_none() {
+                    spec.digests(&cfg.input, &batch.data, &mut fresh)?;
+                }
+                for (seen, name) in group_seen.iter_mut().zip(group) {
+                    let col = batch.data.column_by_name(name).expect("projected");
+                    *seen |= !io::all_null(col.as_ref());
+                }
+            }
+            Ok(())
+        };
+        let (a, b) = rayon::join(in_order, digested);
+        a?;
+        b?;
+        std::mem::swap(&mut pending, &mut fresh);
+        if let (Some(column), Some((values, kind))) = (&cfg.order_by, times.as_mut()) {
+            *kind = Some(time_values(&cfg.input, &batch, column, values)?);
+        }
+        if let Some(keys) = stable_keys.as_mut() {
+            spec.bind(&cfg.input, &batch.data.schema())?.row_digests(&batch.data, keys)?;
+        }
+    }
+    if let Some(groups) = groups.as_mut() {
+        groups.push(&pending);
+    }
+    if rows == 0 {
+        return Err(Error::malformed(&cfg.input, "has a header but no data rows"));
+    }
+    if rows > u32::MAX as u64 {
+        return Err(Error::malformed(&cfg.input, format!("has {rows} rows; cleave splits at most {} rows", u32::MAX)));
+    }
+    if let Some(i) = group_seen.iter().position(|s| !s) {
+        if group_seen.iter().all(|s| !s) {
+            return Err(Error::Options(format!("--group: `{}` is entirely null, so it names no groups", group[i])));
+        }
+    }
+    let strata = match strata_builder {
+        Some(b) => b.finish(),
+        None => strata::single(rows),
+    };
+    let times = times.map(|(v, k)| (v, k.unwrap_or(TimeKind::Integer)));
+    Ok(RowFacts { rows, strata, groups, times, stable_keys })
+}
