@@ -1,6 +1,6 @@
 //! The finding kinds, in one table ([`KINDS`]): each kind's name in reports and what it means.
 //! Report order, names in text and JSON, and the schema's list derive from it; a new kind is a
-//! variant and a row here, its detector in [`super::check_file`], and its name in
+//! variant and a row here, its detector in [`super::detect`], and its name in
 //! `schemas/check.schema.json` (a test compares the schema with this table).
 
 /// A kind of finding. Everything about it is in its row of [`KINDS`].
