@@ -8,6 +8,10 @@ use std::path::PathBuf;
 
 use crate::format::Format;
 
+/// The cause of a decoder's or encoder's failure: the other crate's error,
+/// kept whole, or a sentence of cleave's.
+pub type Cause = Box<dyn std::error::Error + Send + Sync>;
+
 /// Result alias used across the library.
 pub type Result<T, E = Error> = std::result::Result<T, E>;
 
@@ -42,25 +46,27 @@ pub enum Error {
     },
 
     /// A decoder from another crate failed on a file.
-    #[error("`{}`: cannot read as {format}: {message}", path.display())]
+    #[error("`{}`: cannot read as {format}: {source}", path.display())]
     Decode {
         /// The file.
         path: PathBuf,
         /// The format it was read as.
         format: Format,
-        /// The decoder's own message.
-        message: String,
+        /// The decoder's own error (or what cleave found wrong, as text).
+        #[source]
+        source: Cause,
     },
 
     /// An encoder from another crate failed while writing a file.
-    #[error("`{}`: cannot write as {format}: {message}", path.display())]
+    #[error("`{}`: cannot write as {format}: {source}", path.display())]
     Encode {
         /// The file.
         path: PathBuf,
         /// The format it was written as.
         format: Format,
-        /// The encoder's own message.
-        message: String,
+        /// The encoder's own error (or what went wrong, as text).
+        #[source]
+        source: Cause,
     },
 
     /// A column named in the options is not in the file.
@@ -83,6 +89,19 @@ pub enum Error {
         column: String,
         /// Its Arrow type.
         data_type: String,
+    },
+
+    /// A column whose values, as a whole, do not fit what the command needs
+    /// (another type than the seal holds, an order column of another kind, a
+    /// group column with no values).
+    #[error("`{}`: column `{column}` {what}", path.display())]
+    Column {
+        /// The file.
+        path: PathBuf,
+        /// The column.
+        column: String,
+        /// What is wrong with it, as a predicate ("holds text values here ...").
+        what: String,
     },
 
     /// Options that cannot be honoured.
@@ -137,6 +156,21 @@ impl Error {
     /// Shorthand for a malformed file at a line.
     pub fn at_line(path: impl Into<PathBuf>, line: u64, what: impl Into<String>) -> Self {
         Error::Malformed { path: path.into(), line: Some(line), row: None, column: None, what: what.into() }
+    }
+
+    /// Shorthand for a decoder's failure on a file.
+    pub fn decode(path: impl Into<PathBuf>, format: Format, source: impl Into<Cause>) -> Self {
+        Error::Decode { path: path.into(), format, source: source.into() }
+    }
+
+    /// Shorthand for an encoder's failure on a file.
+    pub fn encode(path: impl Into<PathBuf>, format: Format, source: impl Into<Cause>) -> Self {
+        Error::Encode { path: path.into(), format, source: source.into() }
+    }
+
+    /// Shorthand for a column that does not fit as a whole.
+    pub fn column(path: impl Into<PathBuf>, column: impl Into<String>, what: impl Into<String>) -> Self {
+        Error::Column { path: path.into(), column: column.into(), what: what.into() }
     }
 
     /// Shorthand for a malformed file with no better place to name.

@@ -86,7 +86,7 @@ impl Seal {
                     format!("lists `{}` with BLAKE3 {}, but the file hashes to {sum}", sf.file, sf.blake3),
                 ));
             }
-            let recs = seal::decode(&bytes).map_err(|e| untrusted(&file, e))?;
+            let recs = seal::decode(&bytes).map_err(|e| untrusted(&file, e.to_string()))?;
             if recs.len() as u64 != sf.records {
                 return Err(untrusted(
                     &file,

@@ -72,7 +72,7 @@ pub struct Args {
     json: bool,
 }
 
-fn parse_compression(s: &str) -> Result<(parquet::basic::Compression, String), String> {
+fn parse_compression(s: &str) -> Result<(parquet::basic::Compression, String), crate::error::Error> {
     crate::io::parse_compression(s).map(|codec| (codec, s.to_ascii_lowercase()))
 }
 

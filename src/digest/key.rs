@@ -24,9 +24,9 @@ impl DigestKey {
     ///
     /// # Errors
     /// The random source fails.
-    pub fn generate() -> std::result::Result<DigestKey, String> {
+    pub fn generate() -> std::result::Result<DigestKey, getrandom::Error> {
         let mut key = [0u8; 32];
-        getrandom::fill(&mut key).map_err(|e| e.to_string())?;
+        getrandom::fill(&mut key)?;
         Ok(DigestKey(key))
     }
 

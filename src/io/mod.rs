@@ -69,11 +69,7 @@ pub fn guarded<T>(path: &Path, format: Format, f: impl FnOnce() -> Result<T>) ->
                 .map(|s| s.to_string())
                 .or_else(|| payload.downcast_ref::<String>().cloned())
                 .unwrap_or_else(|| "unknown panic".into());
-            Err(Error::Decode {
-                path: path.to_path_buf(),
-                format,
-                message: format!("the file is corrupt (the decoder failed: {message})"),
-            })
+            Err(Error::decode(path, format, format!("the file is corrupt (the decoder failed: {message})")))
         }
     }
 }
@@ -88,8 +84,8 @@ pub fn decoding() -> bool {
     DECODING.with(|d| d.get() > 0)
 }
 
-fn decode_err(path: &Path, format: Format, e: impl std::fmt::Display) -> Error {
-    Error::Decode { path: path.to_path_buf(), format, message: e.to_string() }
+fn decode_err(path: &Path, format: Format, e: impl Into<crate::error::Cause>) -> Error {
+    Error::decode(path, format, e)
 }
 
 /// A table file opened for reading: its format and full schema.
@@ -334,11 +330,7 @@ fn check_magic(path: &Path, format: Format, magic: &[u8]) -> Result<()> {
     } else {
         ""
     };
-    Err(Error::Decode {
-        path: path.to_path_buf(),
-        format,
-        message: format!("the file does not start with the {format} magic bytes{hint}"),
-    })
+    Err(Error::decode(path, format, format!("the file does not start with the {format} magic bytes{hint}")))
 }
 
 /// Infers a JSON Lines schema: arrow-json's inference, then text columns

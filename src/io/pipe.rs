@@ -92,14 +92,14 @@ impl ReadAhead {
             Err(_) => {
                 self.done = true;
                 let panicked = self.handle.take().map(|h| h.join().is_err()).unwrap_or(false);
-                Err(Error::Decode {
-                    path: self.path.clone(),
-                    format: self.format,
-                    message: format!(
+                Err(Error::decode(
+                    self.path.clone(),
+                    self.format,
+                    format!(
                         "the reading thread stopped before the end of the table{}",
                         if panicked { " (it panicked)" } else { "" }
                     ),
-                })
+                ))
             }
         }
     }
@@ -182,7 +182,7 @@ impl WriterThread {
     }
 
     fn failure(&self, message: &str) -> Error {
-        Error::Encode { path: self.path.clone(), format: self.format, message: message.into() }
+        Error::encode(self.path.clone(), self.format, message.to_string())
     }
 
     /// Queues a batch of rows.

@@ -38,17 +38,18 @@ impl FileSummary {
 ///
 /// # Errors
 /// An unknown codec or a level out of the codec's range, said in one line.
-pub fn parse_compression(text: &str) -> std::result::Result<Compression, String> {
+pub fn parse_compression(text: &str) -> Result<Compression> {
     use parquet::basic::{BrotliLevel, GzipLevel, ZstdLevel};
     let (name, level) = match text.split_once(':') {
         Some((name, level)) => {
-            let level =
-                level.parse::<u32>().map_err(|_| format!("compression level `{level}` is not a whole number"))?;
+            let level = level
+                .parse::<u32>()
+                .map_err(|_| Error::Options(format!("compression level `{level}` is not a whole number")))?;
             (name, Some(level))
         }
         None => (text, None),
     };
-    let bad_level = |e: parquet::errors::ParquetError| format!("{name}: {e}");
+    let bad_level = |e: parquet::errors::ParquetError| Error::Options(format!("{name}: {e}"));
     let codec = match (name.to_ascii_lowercase().as_str(), level) {
         ("none", None) => Compression::UNCOMPRESSED,
         ("snappy", None) => Compression::SNAPPY,
@@ -60,11 +61,11 @@ pub fn parse_compression(text: &str) -> std::result::Result<Compression, String>
         ("brotli", l) => {
             Compression::BROTLI(l.map_or(Ok(BrotliLevel::default()), BrotliLevel::try_new).map_err(bad_level)?)
         }
-        ("none" | "snappy" | "lz4", Some(_)) => return Err(format!("`{name}` takes no level")),
+        ("none" | "snappy" | "lz4", Some(_)) => return Err(Error::Options(format!("`{name}` takes no level"))),
         _ => {
-            return Err(format!(
+            return Err(Error::Options(format!(
                 "unknown compression `{text}` (none, snappy, lz4, gzip[:LEVEL], zstd[:LEVEL], brotli[:LEVEL])"
-            ))
+            )))
         }
     };
     Ok(codec)
@@ -127,8 +128,7 @@ impl PartitionWriter {
         compression: Option<Compression>,
     ) -> Result<Self> {
         let mut sink = create_sink(path)?;
-        let enc =
-            |e: &dyn std::fmt::Display| Error::Encode { path: path.to_path_buf(), format, message: e.to_string() };
+        let enc = |e: &dyn std::fmt::Display| Error::encode(path, format, e.to_string());
         let inner = match (format, csv_header) {
             (Format::Csv, Some(header)) => {
                 sink.write_all(header).map_err(|e| Error::io(path, "cannot write", e))?;
@@ -155,8 +155,8 @@ impl PartitionWriter {
         Ok(PartitionWriter { path: path.to_path_buf(), format, inner })
     }
 
-    fn enc(&self, e: impl std::fmt::Display) -> Error {
-        Error::Encode { path: self.path.clone(), format: self.format, message: e.to_string() }
+    fn enc(&self, e: impl Into<crate::error::Cause>) -> Error {
+        Error::encode(self.path.clone(), self.format, e)
     }
 
     /// Appends a batch of rows.
@@ -195,17 +195,17 @@ impl PartitionWriter {
     pub fn finish(self) -> Result<FileSummary> {
         let path = self.path.clone();
         let format = self.format;
-        let enc = |e: String| Error::Encode { path: path.clone(), format, message: e };
+        let enc = |e: crate::error::Cause| Error::encode(path.clone(), format, e);
         let sink = match self.inner {
             Inner::CsvRaw(sink) => sink,
             Inner::Csv(w) => w.into_inner(),
-            Inner::Parquet(w) => w.into_inner().map_err(|e| enc(e.to_string()))?,
+            Inner::Parquet(w) => w.into_inner().map_err(|e| enc(e.into()))?,
             Inner::Ipc(mut w) => {
-                w.finish().map_err(|e| enc(e.to_string()))?;
-                w.into_inner().map_err(|e| enc(e.to_string()))?
+                w.finish().map_err(|e| enc(e.into()))?;
+                w.into_inner().map_err(|e| enc(e.into()))?
             }
             Inner::Json(mut w) => {
-                w.finish().map_err(|e| enc(e.to_string()))?;
+                w.finish().map_err(|e| enc(e.into()))?;
                 w.into_inner()
             }
         };
@@ -257,15 +257,15 @@ mod tests {
 
     #[test]
     fn compression_names_and_levels() {
-        assert_eq!(parse_compression("none"), Ok(Compression::UNCOMPRESSED));
-        assert_eq!(parse_compression("Snappy"), Ok(Compression::SNAPPY));
-        assert_eq!(parse_compression("lz4"), Ok(Compression::LZ4_RAW));
-        assert_eq!(parse_compression("zstd"), Ok(Compression::ZSTD(ZstdLevel::default())));
-        assert_eq!(parse_compression("zstd:9"), Ok(Compression::ZSTD(ZstdLevel::try_new(9).unwrap())));
-        assert_eq!(parse_compression("gzip:1"), Ok(Compression::GZIP(GzipLevel::try_new(1).unwrap())));
-        assert!(parse_compression("zstd:99").unwrap_err().contains("zstd"));
-        assert!(parse_compression("snappy:2").unwrap_err().contains("takes no level"));
-        assert!(parse_compression("lzo").unwrap_err().contains("unknown compression `lzo`"));
-        assert!(parse_compression("gzip:x").unwrap_err().contains("not a whole number"));
+        assert_eq!(parse_compression("none").unwrap(), Compression::UNCOMPRESSED);
+        assert_eq!(parse_compression("Snappy").unwrap(), Compression::SNAPPY);
+        assert_eq!(parse_compression("lz4").unwrap(), Compression::LZ4_RAW);
+        assert_eq!(parse_compression("zstd").unwrap(), Compression::ZSTD(ZstdLevel::default()));
+        assert_eq!(parse_compression("zstd:9").unwrap(), Compression::ZSTD(ZstdLevel::try_new(9).unwrap()));
+        assert_eq!(parse_compression("gzip:1").unwrap(), Compression::GZIP(GzipLevel::try_new(1).unwrap()));
+        assert!(parse_compression("zstd:99").unwrap_err().to_string().contains("zstd"));
+        assert!(parse_compression("snappy:2").unwrap_err().to_string().contains("takes no level"));
+        assert!(parse_compression("lzo").unwrap_err().to_string().contains("unknown compression `lzo`"));
+        assert!(parse_compression("gzip:x").unwrap_err().to_string().contains("not a whole number"));
     }
 }

@@ -251,7 +251,7 @@ fn stored_of(dir: &Path, ledger: &Ledger, truth: &Truth, metric: Metric) -> Resu
     for e in ledger.entries.iter().filter(|e| e.body.metric == metric.name()) {
         let path = dir.join(&e.body.stored);
         let bytes = std::fs::read(&path).map_err(|err| Error::io(&path, "cannot read", err))?;
-        let p = decode_predictions(&bytes, truth, metric).map_err(|m| Error::malformed(&e.body.stored, m))?;
+        let p = decode_predictions(std::path::Path::new(&e.body.stored), &bytes, truth, metric)?;
         let pos = positive_class(truth, metric, e.body.positive.as_deref())?;
         preds.push((p, pos));
     }

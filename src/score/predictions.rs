@@ -265,15 +265,16 @@ pub fn encode_predictions(p: &Predictions) -> Vec<u8> {
 /// # Errors
 /// Malformed bytes, or predictions that do not fit the labels (kind, row count, class numbers,
 /// probability columns).
-pub fn decode_predictions(bytes: &[u8], truth: &Truth, metric: Metric) -> std::result::Result<Predictions, String> {
-    const MALFORMED: &str = "stored predictions are malformed";
+pub fn decode_predictions(path: &Path, bytes: &[u8], truth: &Truth, metric: Metric) -> Result<Predictions> {
+    let malformed = || Err(Error::malformed(path, "stored predictions are malformed"));
     if bytes.len() < 5 || !(bytes.len() - 5).is_multiple_of(8) {
-        return Err(MALFORMED.into());
+        return malformed();
     }
     let width = u32::from_le_bytes(bytes[1..5].try_into().expect("4 bytes")) as usize;
     let values: Vec<f64> =
         bytes[5..].chunks_exact(8).map(|c| f64::from_le_bytes(c.try_into().expect("8 bytes"))).collect();
-    let unfit = |what: String| Err(format!("stored predictions do not fit the sealed labels: {what}"));
+    let unfit =
+        |what: String| Err(Error::malformed(path, format!("stored predictions do not fit the sealed labels: {what}")));
     let classes = match truth {
         Truth::Numbers(_) => None,
         Truth::Classes { names, .. } => Some(names.len()),
@@ -289,7 +290,7 @@ pub fn decode_predictions(bytes: &[u8], truth: &Truth, metric: Metric) -> std::r
         }
         (2, Some(k)) if width == k => Predictions::Probabilities { classes: width, p: values },
         (0..=2, _) => return unfit(format!("kind {} of width {width} for {} labels", bytes[0], truth.kind_name())),
-        _ => return Err(MALFORMED.into()),
+        _ => return malformed(),
     };
     let (flat, width) = predictions.flat();
     if flat.len() != rows * width {

@@ -93,12 +93,14 @@ pub fn load_truth(loaded: &LoadedManifest, metric: Option<Metric>) -> Result<(Tr
             }
         }
         if metric.is_regression() {
-            let f = arrow_cast::cast(&col, &DataType::Float64).map_err(|e| Error::Options(e.to_string()))?;
+            let f = arrow_cast::cast(&col, &DataType::Float64)
+                .map_err(|e| Error::column(&path, &label, format!("cannot be read as numbers: {e}")))?;
             numbers.extend_from_slice(f.as_primitive::<arrow_array::types::Float64Type>().values());
         } else {
             for i in 0..col.len() {
                 texts.push(
-                    arrow_cast::display::array_value_to_string(&col, i).map_err(|e| Error::Options(e.to_string()))?,
+                    arrow_cast::display::array_value_to_string(&col, i)
+                        .map_err(|e| Error::column(&path, &label, format!("cannot be shown as text: {e}")))?,
                 );
             }
         }

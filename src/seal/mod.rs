@@ -48,11 +48,29 @@ pub fn write_sorted(records: &[SealRecord], out: &mut dyn std::io::Write) -> std
     Ok(())
 }
 
+/// What is wrong with the bytes of a seal file (the sentence follows the
+/// file's name).
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+pub enum SealFileError {
+    /// A length that is not a whole number of records.
+    #[error("is {bytes} bytes, not a whole number of {RECORD_BYTES}-byte records")]
+    PartialRecord {
+        /// The file's length.
+        bytes: usize,
+    },
+    /// A record smaller than the one before it.
+    #[error("records are out of order at record {record}")]
+    OutOfOrder {
+        /// Its 1-based number.
+        record: usize,
+    },
+}
+
 /// Parses seal file bytes.
 ///
 /// # Errors
 /// A length that is not a whole number of records, or records out of order.
-pub fn decode(bytes: &[u8]) -> Result<Vec<SealRecord>, String> {
+pub fn decode(bytes: &[u8]) -> Result<Vec<SealRecord>, SealFileError> {
     check_order(bytes)?;
     Ok(records(bytes).collect())
 }
@@ -62,14 +80,14 @@ pub fn decode(bytes: &[u8]) -> Result<Vec<SealRecord>, String> {
 ///
 /// # Errors
 /// A length that is not a whole number of records, or records out of order.
-pub fn check_order(bytes: &[u8]) -> Result<usize, String> {
+pub fn check_order(bytes: &[u8]) -> Result<usize, SealFileError> {
     if !bytes.len().is_multiple_of(RECORD_BYTES) {
-        return Err(format!("is {} bytes, not a whole number of {RECORD_BYTES}-byte records", bytes.len()));
+        return Err(SealFileError::PartialRecord { bytes: bytes.len() });
     }
     let mut prev: Option<SealRecord> = None;
     for (i, record) in records(bytes).enumerate() {
         if prev.is_some_and(|p| p > record) {
-            return Err(format!("records are out of order at record {}", i + 1));
+            return Err(SealFileError::OutOfOrder { record: i + 1 });
         }
         prev = Some(record);
     }
@@ -152,7 +170,7 @@ mod tests {
         assert!(decode(&bytes[..23]).is_err());
         let mut swapped = bytes[24..].to_vec();
         swapped.extend_from_slice(&bytes[..24]);
-        assert!(decode(&swapped).unwrap_err().contains("out of order"));
+        assert_eq!(decode(&swapped).unwrap_err(), SealFileError::OutOfOrder { record: 2 });
     }
 
     /// Records sort as the standard library's sort of (digest, row) tuples,

@@ -61,7 +61,8 @@ pub fn time_values(path: &Path, batch: &Batch, column: &str, out: &mut Vec<i64>)
             TimeKind::Timestamp
         }
         DataType::Date32 | DataType::Date64 => {
-            let days = arrow_cast::cast(array, &DataType::Date32).map_err(|e| Error::Options(e.to_string()))?;
+            let days = arrow_cast::cast(array, &DataType::Date32)
+                .map_err(|e| Error::column(path, column, format!("cannot be read as dates: {e}")))?;
             for v in days.as_primitive::<Date32Type>().values() {
                 out.push(*v as i64 * MICROS_PER_DAY);
             }
@@ -75,8 +76,9 @@ pub fn time_values(path: &Path, batch: &Batch, column: &str, out: &mut Vec<i64>)
         | DataType::UInt16
         | DataType::UInt32
         | DataType::UInt64 => {
-            let ints = arrow_cast::cast(array, &DataType::Int64)
-                .map_err(|_| Error::Options(format!("--order-by: `{column}` holds integers beyond 64 bits")))?;
+            let ints = arrow_cast::cast(array, &DataType::Int64).map_err(|_| {
+                Error::column(path, column, "holds integers beyond 64 bits, which cannot be ordered as times")
+            })?;
             out.extend_from_slice(ints.as_primitive::<Int64Type>().values());
             TimeKind::Integer
         }
@@ -98,14 +100,14 @@ pub fn time_values(path: &Path, batch: &Batch, column: &str, out: &mut Vec<i64>)
                     ));
                 }
             }
-            return Err(Error::Options(format!(
-                "--order-by: `{column}` mixes dates and timestamps; give one kind of time"
-            )));
+            return Err(Error::column(path, column, "mixes dates and timestamps; give one kind of time to order by"));
         }
         other => {
-            return Err(Error::Options(format!(
-                "--order-by: `{column}` has type {other}; it must hold timestamps, dates or integers"
-            )))
+            return Err(Error::column(
+                path,
+                column,
+                format!("has type {other}; an order column must hold timestamps, dates or integers"),
+            ))
         }
     };
     Ok(kind)

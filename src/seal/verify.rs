@@ -259,7 +259,7 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
             problem(&sf.file, format!("BLAKE3 is {}, the seal says {}", summary.blake3, sf.blake3));
         }
         match checked {
-            Err(e) => problem(&sf.file, e),
+            Err(e) => problem(&sf.file, e.to_string()),
             Ok(records) => {
                 if records as u64 != sf.records {
                     problem(&sf.file, format!("holds {records} records, the seal says {}", sf.records));

@@ -103,7 +103,7 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
             if let Some(b) = strata_builder.as_mut() {
                 let arrays: Vec<ArrayRef> =
                     stratify.iter().map(|(s, _)| batch.data.column_by_name(s).expect("projected").clone()).collect();
-                b.push(&arrays)?;
+                b.push(&cfg.input, &arrays)?;
             }
             if let (Some(spec), Some(groups)) = (&group_spec, groups.as_mut()) {
                 groups.push(&pending);
@@ -155,7 +155,7 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     }
     if let Some(i) = group_seen.iter().position(|s| !s) {
         if group_seen.iter().all(|s| !s) {
-            return Err(Error::Options(format!("--group: `{}` is entirely null, so it names no groups", group[i])));
+            return Err(Error::column(&cfg.input, &group[i], "is entirely null, so --group finds no groups in it"));
         }
     }
     let strata = match strata_builder {

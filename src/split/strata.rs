@@ -113,7 +113,7 @@ impl StrataBuilder {
     ///
     /// # Errors
     /// Values that cannot be encoded.
-    pub fn push(&mut self, arrays: &[ArrayRef]) -> Result<()> {
+    pub fn push(&mut self, path: &std::path::Path, arrays: &[ArrayRef]) -> Result<()> {
         let bins = self.bins;
         for (col, array) in self.columns.iter_mut().zip(arrays) {
             match col {
@@ -167,7 +167,7 @@ impl StrataBuilder {
                 }
                 Column::Numeric { name, values, distinct, keys, codes } => {
                     let floats = arrow_cast::cast(array, &DataType::Float64).map_err(|e| {
-                        Error::Options(format!("--stratify: column `{name}` cannot be read as numbers: {e}"))
+                        Error::column(path, name.as_str(), format!("cannot be read as numbers for --stratify: {e}"))
                     })?;
                     let floats = floats.as_primitive::<Float64Type>();
                     let encoder = ValueEncoder::new(array, name)?;
@@ -442,7 +442,7 @@ mod tests {
     fn categorical_with_null_stratum() {
         let mut b = StrataBuilder::new(&[("class".into(), ColumnType::String)], 5);
         let a: ArrayRef = Arc::new(StringArray::from(vec![Some("b"), None, Some("a"), Some("b")]));
-        b.push(&[a]).unwrap();
+        b.push(std::path::Path::new("t.csv"), &[a]).unwrap();
         let s = b.finish();
         assert_eq!(s.labels, ["class=a", "class=b", "class=<null>"]);
         assert_eq!(s.row_stratum, [1, 2, 0, 1]);
@@ -487,8 +487,8 @@ mod tests {
             let text: Vec<Option<&str>> =
                 rows[at..at + b.len()].iter().map(|k| k.map(|k| dictionary[k as usize])).collect();
             at += b.len();
-            plain.push(&[Arc::new(StringArray::from(text)) as ArrayRef]).unwrap();
-            dict.push(std::slice::from_ref(b)).unwrap();
+            plain.push(std::path::Path::new("t.csv"), &[Arc::new(StringArray::from(text)) as ArrayRef]).unwrap();
+            dict.push(std::path::Path::new("t.csv"), std::slice::from_ref(b)).unwrap();
         }
         let (p, d) = (plain.finish(), dict.finish());
         assert_eq!(d.labels, p.labels);
@@ -535,13 +535,13 @@ mod tests {
     fn few_numbers_are_classes_many_are_binned() {
         let mut b = StrataBuilder::new(&[("y".into(), ColumnType::Integer)], 5);
         let a: ArrayRef = Arc::new(Int64Array::from(vec![1, 0, 1, 1, 0]));
-        b.push(&[a]).unwrap();
+        b.push(std::path::Path::new("t.csv"), &[a]).unwrap();
         assert_eq!(b.finish().labels, ["y=0", "y=1"]);
 
         // 1..=10 in 5 bins: cuts at v[1], v[3], v[5], v[7] = 2, 4, 6, 8.
         let mut b = StrataBuilder::new(&[("x".into(), ColumnType::Float)], 5);
         let a: ArrayRef = Arc::new(Float64Array::from((1..=10).map(|v| v as f64).collect::<Vec<_>>()));
-        b.push(&[a]).unwrap();
+        b.push(std::path::Path::new("t.csv"), &[a]).unwrap();
         let s = b.finish();
         assert_eq!(s.labels, ["x=[1, 2]", "x=[3, 4]", "x=[5, 6]", "x=[7, 8]", "x=[9, 10]"]);
         assert_eq!(s.sizes, [2, 2, 2, 2, 2]);
