@@ -5,6 +5,7 @@ mod check;
 mod formats;
 mod golden;
 mod hand_made;
+mod mutated;
 mod reference;
 mod score;
 mod split;
