@@ -39,7 +39,6 @@ use arrow_schema::{Field, Schema};
 use self::detect::{Found, Status};
 pub use self::kind::{Kind, KindInfo, KINDS};
 pub use self::sealed::Seal;
-pub use self::set::DigestSet;
 use crate::error::{Error, Result};
 use crate::io::{Batch, ColumnType, Format, Table};
 

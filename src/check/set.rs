@@ -96,11 +96,6 @@ impl DigestSet {
     pub fn len(&self) -> usize {
         self.records.len()
     }
-
-    /// No records.
-    pub fn is_empty(&self) -> bool {
-        self.records.is_empty()
-    }
 }
 
 /// Distances, in keys, of the three stages of [`DigestSet::get_many`].

@@ -19,12 +19,13 @@
 //!   file it is a ragged row (an error), except for the final line break;
 //! - header names must be non-empty and distinct.
 //!
-//! Types are inferred per column over the whole file (see [`infer`]) so that a
+//! Types are inferred per column over the whole file (see [`infer_keeping`]) so that a
 //! CSV file and a Parquet file of the same table read to the same values; a
 //! caller that already knows the types (the sealed schema) passes them in.
 
-use std::fs::File;
-use std::io::{BufReader, Read};
+use std::io::Read;
+
+use super::bytes::TextReader;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
@@ -283,9 +284,8 @@ fn field_str<'a>(tok: &Tokenizer<impl Read>, rec: &'a Record, i: usize, names: &
     })
 }
 
-fn open(path: &Path) -> Result<BufReader<File>> {
-    let file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
-    Ok(BufReader::with_capacity(CHUNK, file))
+fn open(path: &Path) -> Result<TextReader> {
+    super::bytes::open_text(path, CHUNK)
 }
 
 /// Candidate types for a column, narrowed value by value.
@@ -354,18 +354,6 @@ impl Candidates {
     }
 }
 
-/// Infers each column's type over the whole file, checking its structure on
-/// the way: an inference pass that succeeds means the file is well-formed.
-///
-/// Columns listed in `known` take that type without inference; when every
-/// column is known, only the header is read (the reading pass checks the rows).
-///
-/// # Errors
-/// The first structural problem, with its line.
-pub fn infer(path: &Path, known: &dyn Fn(&str) -> Option<ColumnType>) -> Result<(Vec<String>, Vec<ColumnType>)> {
-    infer_keeping(path, known, None).map(|(names, types, _)| (names, types))
-}
-
 /// The text of some columns of every row, kept by the inference pass so
 /// that a split's first pass need not read the file again: about the
 /// columns' bytes plus 8 bytes per row and column, and each row's line.
@@ -395,12 +383,16 @@ impl KeptText {
     }
 }
 
-/// As [`infer`]; with `keep`, also keeps each row's line and the text of
-/// the columns named there (those the file has). Nothing is kept when every
-/// type is known (no rows are read then).
+/// Infers each column's type over the whole file, checking its structure on
+/// the way: an inference pass that succeeds means the file is well-formed.
+/// Columns listed in `known` take that type without inference; when every
+/// column is known, only the header is read (the reading pass checks the
+/// rows). With `keep`, also keeps each row's line and the text of the
+/// columns named there (those the file has); nothing is kept when every type
+/// is known.
 ///
 /// # Errors
-/// As [`infer`].
+/// The first structural problem, with its line.
 pub fn infer_keeping(
     path: &Path,
     known: &dyn Fn(&str) -> Option<ColumnType>,
@@ -455,7 +447,7 @@ pub fn schema_for(names: &[String], types: &[ColumnType]) -> SchemaRef {
 
 /// Streams a CSV file as typed record batches.
 pub struct CsvReader {
-    tok: Tokenizer<BufReader<File>>,
+    tok: Tokenizer<TextReader>,
     names: Vec<String>,
     types: Vec<ColumnType>,
     /// Indices of the columns to build (the projection), in schema order.
@@ -512,11 +504,6 @@ impl CsvReader {
             done: false,
             header_raw,
         })
-    }
-
-    /// The schema of the batches.
-    pub fn schema(&self) -> SchemaRef {
-        self.schema.clone()
     }
 
     /// The header line as it stands in the file (without a byte-order mark),

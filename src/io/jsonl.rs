@@ -8,8 +8,8 @@
 
 use std::collections::HashSet;
 use std::fmt;
-use std::fs::File;
-use std::io::{BufRead, BufReader};
+
+use std::io::BufRead;
 use std::path::Path;
 
 use serde::de::{self, DeserializeSeed, Deserializer, MapAccess, SeqAccess, Visitor};
@@ -109,8 +109,7 @@ fn oversized_integer(line: &str) -> Option<String> {
 /// # Errors
 /// The first offending line, named.
 pub fn validate(path: &Path) -> Result<()> {
-    let file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
-    let mut reader = BufReader::with_capacity(1 << 20, file);
+    let mut reader = super::bytes::open_text(path, 1 << 20)?;
     let mut buf = Vec::new();
     let mut line_no = 0u64;
     loop {

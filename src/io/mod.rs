@@ -8,7 +8,8 @@
 //! (`shared/guide/reliability.md`, section 1.10): a panic becomes an error
 //! naming the file.
 
-pub mod csv;
+pub mod bytes;
+pub(crate) mod csv;
 mod jsonl;
 mod parquet_par;
 mod pipe;
@@ -16,7 +17,7 @@ mod write;
 
 use std::collections::BTreeMap;
 use std::fs::File;
-use std::io::{BufReader, Read, Seek};
+use std::io::{BufReader, Read};
 use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -57,7 +58,7 @@ pub type TypeHints = BTreeMap<String, ColumnType>;
 ///
 /// # Errors
 /// The decoder's own error, or [`Error::Decode`] if it panicked.
-pub fn guarded<T>(path: &Path, format: Format, f: impl FnOnce() -> Result<T>) -> Result<T> {
+pub(crate) fn guarded<T>(path: &Path, format: Format, f: impl FnOnce() -> Result<T>) -> Result<T> {
     DECODING.with(|d| d.set(d.get() + 1));
     let result = catch_unwind(AssertUnwindSafe(f));
     DECODING.with(|d| d.set(d.get() - 1));
@@ -80,7 +81,7 @@ thread_local! {
 
 /// True while a guarded decoder runs on this thread: a panic hook uses it to
 /// stay quiet about panics that [`guarded`] turns into errors.
-pub fn decoding() -> bool {
+pub(crate) fn decoding() -> bool {
     DECODING.with(|d| d.get() > 0)
 }
 
@@ -268,10 +269,9 @@ impl Table {
                 Ok(BatchSource::Ipc(reader))
             })?,
             Format::Jsonl => {
-                let file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
                 let reader = arrow_json::ReaderBuilder::new(self.schema.clone())
                     .with_batch_size(BATCH_ROWS)
-                    .build(BufReader::new(file))
+                    .build(bytes::open_text(path, 1 << 16)?)
                     .map_err(|e| decode_err(path, format, e))?;
                 BatchSource::Json { reader, projection: indices }
             }
@@ -338,10 +338,9 @@ fn check_magic(path: &Path, format: Format, magic: &[u8]) -> Result<()> {
 /// or timestamps, as in CSV; `hints` override both.
 fn infer_jsonl(path: &Path, hints: &TypeHints) -> Result<SchemaRef> {
     let format = Format::Jsonl;
-    let mut file = BufReader::new(File::open(path).map_err(|e| Error::io(path, "cannot open", e))?);
-    let (inferred, _) = arrow_json::reader::infer_json_schema_from_seekable(&mut file, None)
+    let (inferred, _) = arrow_json::reader::infer_json_schema(bytes::open_text(path, 1 << 16)?, None)
         .map_err(|e| decode_err(path, format, e))?;
-    file.rewind().map_err(|e| Error::io(path, "cannot read", e))?;
+    let file = bytes::open_text(path, 1 << 16)?;
     if inferred.fields().is_empty() {
         return Err(Error::malformed(path, "no columns found"));
     }
@@ -410,7 +409,7 @@ enum BatchSource {
     Parquet(ParquetRecordBatchReader),
     ParquetParallel(parquet_par::Reader),
     Ipc(arrow_ipc::reader::FileReader<BufReader<File>>),
-    Json { reader: arrow_json::Reader<BufReader<File>>, projection: Option<Vec<usize>> },
+    Json { reader: arrow_json::Reader<bytes::TextReader>, projection: Option<Vec<usize>> },
 }
 
 /// One batch of rows, with the CSV records' raw bytes when asked for.

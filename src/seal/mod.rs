@@ -80,7 +80,7 @@ pub fn decode(bytes: &[u8]) -> Result<Vec<SealRecord>, SealFileError> {
 ///
 /// # Errors
 /// A length that is not a whole number of records, or records out of order.
-pub fn check_order(bytes: &[u8]) -> Result<usize, SealFileError> {
+pub(crate) fn check_order(bytes: &[u8]) -> Result<usize, SealFileError> {
     if !bytes.len().is_multiple_of(RECORD_BYTES) {
         return Err(SealFileError::PartialRecord { bytes: bytes.len() });
     }
@@ -96,7 +96,7 @@ pub fn check_order(bytes: &[u8]) -> Result<usize, SealFileError> {
 
 /// The records of seal file bytes, in file order (a trailing partial record
 /// is left out: [`check_order`] refuses it).
-pub fn records(bytes: &[u8]) -> impl Iterator<Item = SealRecord> + '_ {
+pub(crate) fn records(bytes: &[u8]) -> impl Iterator<Item = SealRecord> + '_ {
     bytes.chunks_exact(RECORD_BYTES).map(|chunk| {
         let digest: RowDigest = chunk[..16].try_into().expect("16 bytes");
         (digest, u64::from_le_bytes(chunk[16..].try_into().expect("8 bytes")))

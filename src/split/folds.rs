@@ -16,11 +16,11 @@
 //!   numbered 0..k; fold i validates on block i and trains on blocks 0..i-1,
 //!   less the rows with time > start of block i - gap.
 
+use super::strata::Strata;
 use crate::error::{Error, Result};
 use crate::rng::SplitRng;
 use crate::seal::manifest::FoldKind;
 use crate::split::structure::Groups;
-use crate::split::Strata;
 
 /// How many folds.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

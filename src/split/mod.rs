@@ -30,17 +30,15 @@ mod strata;
 mod structure;
 
 pub use self::config::SplitConfig;
-pub use self::folds::{FoldCount, NO_FOLD};
+pub use self::folds::FoldCount;
 use self::output::{OutputLock, Staging};
 pub use self::ratio::Ratios;
-pub use self::strata::{Strata, StrataBuilder};
-pub use self::structure::{parse_gap, Groups};
 use crate::error::Result;
 use crate::io;
 use crate::seal::manifest::{self, Manifest};
 
 /// The partition code of a row left out (by the gap or the group rule).
-pub const DROPPED: u8 = u8::MAX;
+pub(crate) const DROPPED: u8 = u8::MAX;
 
 /// What a split produced.
 #[derive(Debug, Clone)]
@@ -91,6 +89,7 @@ mod tests {
     use proptest::prelude::*;
 
     use super::assign::{stratified, tally};
+    use super::strata::Strata;
     use super::*;
     use crate::rng::SplitRng;
     use crate::seal::handoff::{row_id, RowIds};

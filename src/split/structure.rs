@@ -22,13 +22,14 @@
 //!   keyed BLAKE3 hash of its digest and the seed, so it never moves when other
 //!   rows come or go; shares are then approximate.
 
+use super::strata::Strata;
 use crate::digest::{DigestMap, RowDigest};
 use crate::error::{Error, Result};
 use crate::rng::SplitRng;
 use crate::seal::time::TimeKind;
 use crate::seal::time::MICROS_PER_DAY;
 use crate::split::memo::DictionaryMemo;
-use crate::split::{Ratios, Strata, DROPPED};
+use crate::split::{Ratios, DROPPED};
 use arrow_array::Int32Array;
 
 /// Parses `--gap`: `7d`, `36h`, `90m`, `45s`, `2w` for times and dates
@@ -121,11 +122,6 @@ impl Groups {
     /// Number of groups.
     pub fn len(&self) -> usize {
         self.sizes.len()
-    }
-
-    /// True without rows.
-    pub fn is_empty(&self) -> bool {
-        self.sizes.is_empty()
     }
 }
 
