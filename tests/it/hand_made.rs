@@ -172,3 +172,59 @@ fn quantile_bins_over_nans_of_many_bit_patterns_split_instead_of_panicking() {
     let m = crate::util::manifest(&t.path("b"));
     assert_eq!(m["strata"]["count"].as_u64(), Some(4), "three bins and NaN: {m:?}");
 }
+
+/// Days since 1970-01-01 of a proleptic Gregorian date: Howard Hinnant's `days_from_civil`
+/// ("chrono-Compatible Low-Level Date Algorithms"), written out here so that the test does not
+/// share code with cleave's own calendar.
+fn days_from_civil(y: i64, m: i64, d: i64) -> i64 {
+    let y = if m <= 2 { y - 1 } else { y };
+    let era = y.div_euclid(400);
+    let yoe = y - era * 400;
+    let mp = (m + 9) % 12;
+    let doy = (153 * mp + 2) / 5 + d - 1;
+    let doe = yoe * 365 + yoe / 4 - yoe / 100 + doy;
+    era * 146_097 + doe - 719_468
+}
+
+/// An Arrow IPC file of stations sampled on 1 January of `years[i]`, in whole seconds.
+fn write_years_file(t: &Test, name: &str, years: &[i64]) {
+    use arrow_array::{ArrayRef, Int64Array, RecordBatch, StringArray, TimestampSecondArray};
+    let secs: Vec<i64> = years.iter().map(|&y| days_from_civil(y, 1, 1) * 86_400).collect();
+    let batch = RecordBatch::try_from_iter([
+        (
+            "station",
+            Arc::new(StringArray::from_iter_values((0..years.len()).map(|k| format!("s{}", k % 9)))) as ArrayRef,
+        ),
+        ("sample_time", Arc::new(TimestampSecondArray::from(secs).with_timezone("+00:00")) as ArrayRef),
+        ("reading", Arc::new(Int64Array::from_iter_values(0..years.len() as i64)) as ArrayRef),
+    ])
+    .unwrap();
+    let file = std::fs::File::create(t.path(name)).unwrap();
+    let mut w = arrow_ipc::writer::FileWriter::try_new(file, &batch.schema()).unwrap();
+    w.write(&batch).unwrap();
+    w.finish().unwrap();
+}
+
+/// Years that differ by exactly 2^32 once wrote the same text, so their rows had one digest: a
+/// sample from the year 2000 + k and one from 2000 + k + 2^32 would count as copies of each other.
+#[test]
+fn years_apart_by_two_to_the_32_are_different_rows_through_split_and_check() {
+    let t = Test::new();
+    let far: Vec<i64> = (0..200).map(|k| 2000 + k + (1i64 << 32)).collect();
+    let near: Vec<i64> = far.iter().map(|y| y - (1i64 << 32)).collect();
+    write_years_file(&t, "far.arrow", &far);
+    write_years_file(&t, "near.arrow", &near);
+    t.ok(&["split", "far.arrow", "--out", "out", "--ratios", "50,50", "--seed", "1"]);
+    let control = t.run(&["check", "far.arrow", "--against", "out", "--json"]);
+    assert_eq!(control.code, 1, "{}", control.stderr);
+    let j = control.json();
+    let flagged = |j: &serde_json::Value, kind: &str| j["files"][0]["findings"][kind]["count"].as_u64().unwrap();
+    assert_eq!(flagged(&j, "features"), 100, "{j}");
+    assert_eq!(flagged(&j, "near"), 100, "{j}");
+    // The same rows 2^32 years earlier share no digest with the sealed ones.
+    let shifted = t.run(&["check", "near.arrow", "--against", "out", "--json"]);
+    assert_eq!(shifted.code, 0, "{}\n{}", shifted.stdout, shifted.stderr);
+    let j = shifted.json();
+    assert_eq!(flagged(&j, "features"), 0, "{j}");
+    assert_eq!(flagged(&j, "near"), 0, "{j}");
+}
