@@ -10,6 +10,7 @@
 //! sequence number, with their BLAKE3 in the entry, for the optimism estimate.
 
 use std::path::{Path, PathBuf};
+use std::time::{Duration, Instant};
 
 use serde::{Deserialize, Serialize};
 
@@ -19,6 +20,13 @@ use crate::error::{Error, Result};
 pub const FILE_NAME: &str = "ledger.jsonl";
 /// The folder of stored predictions.
 pub const SCORES_DIR: &str = "scores";
+/// The lock file of the ledger: one scoring at a time reads, checks and appends.
+pub const LOCK_NAME: &str = ".ledger.lock";
+/// How long a scoring waits for the scorings ahead of it.
+pub const LOCK_WAIT: Duration = Duration::from_secs(300);
+/// The prefix of the ledger's temporary copies (`.ledger.jsonl.cleave-PID`).
+const TEMP_PREFIX: &str = ".ledger.jsonl.cleave-";
+
 /// `previous` of the first entry.
 pub const GENESIS: &str = "0000000000000000000000000000000000000000000000000000000000000000";
 
@@ -192,31 +200,125 @@ pub fn read(dir: &Path, expect_head: Option<&str>) -> Result<Ledger> {
     Ok(ledger)
 }
 
-/// Appends an entry: the stored predictions first, then the ledger rewritten
-/// beside itself and renamed into place, so a crash leaves the old ledger or
-/// the new one.
+/// The ledger's lock, held from reading the ledger to the end of an append,
+/// so that concurrent scorings take their turns. The kernel releases it if
+/// the holder dies; the lock file stays (removing it would race).
+pub struct LedgerLock {
+    _file: std::fs::File,
+}
+
+impl LedgerLock {
+    /// Takes the lock of `dir`'s ledger, waiting up to [`LOCK_WAIT`] for the
+    /// scorings ahead.
+    ///
+    /// # Errors
+    /// The lock file cannot be created, or the wait runs out.
+    pub fn take(dir: &Path) -> Result<LedgerLock> {
+        let path = dir.join(LOCK_NAME);
+        let file = std::fs::File::options()
+            .create(true)
+            .truncate(false)
+            .write(true)
+            .open(&path)
+            .map_err(|e| Error::io(&path, "cannot create the ledger's lock file", e))?;
+        let start = Instant::now();
+        let mut pause = Duration::from_millis(1);
+        loop {
+            match file.try_lock() {
+                Ok(()) => return Ok(LedgerLock { _file: file }),
+                Err(std::fs::TryLockError::WouldBlock) if start.elapsed() < LOCK_WAIT => {
+                    std::thread::sleep(pause);
+                    pause = (pause * 2).min(Duration::from_millis(50));
+                }
+                Err(std::fs::TryLockError::WouldBlock) => {
+                    return Err(Error::io(
+                        &path,
+                        "waited for other scorings to finish",
+                        std::io::Error::new(
+                            std::io::ErrorKind::TimedOut,
+                            format!("still locked after {} s", LOCK_WAIT.as_secs()),
+                        ),
+                    ))
+                }
+                Err(std::fs::TryLockError::Error(e)) => return Err(Error::io(&path, "cannot lock", e)),
+            }
+        }
+    }
+
+    /// Removes what scorings that died left behind: temporary copies of the
+    /// ledger, and stored predictions that no entry of the (intact) ledger
+    /// names. Only the lock's holder may, as no other writer is alive then.
+    ///
+    /// # Errors
+    /// A leftover that cannot be removed.
+    pub fn clean(&self, dir: &Path, ledger: &Ledger) -> Result<()> {
+        debug_assert!(ledger.intact(), "a broken ledger is evidence: nothing is removed");
+        let stale =
+            |path: &Path| std::fs::remove_file(path).map_err(|e| Error::io(path, "cannot remove the leftover", e));
+        for e in std::fs::read_dir(dir).map_err(|e| Error::io(dir, "cannot list", e))? {
+            let e = e.map_err(|e| Error::io(dir, "cannot list", e))?;
+            if e.file_name().to_string_lossy().starts_with(TEMP_PREFIX) {
+                stale(&e.path())?;
+            }
+        }
+        let scores = dir.join(SCORES_DIR);
+        let named: std::collections::HashSet<PathBuf> =
+            ledger.entries.iter().map(|e| dir.join(&e.body.stored)).collect();
+        match std::fs::read_dir(&scores) {
+            Ok(list) => {
+                for e in list {
+                    let e = e.map_err(|e| Error::io(&scores, "cannot list", e))?;
+                    if e.file_type().is_ok_and(|t| t.is_file()) && !named.contains(&e.path()) {
+                        stale(&e.path())?;
+                    }
+                }
+            }
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => {}
+            Err(e) => return Err(Error::io(&scores, "cannot list", e)),
+        }
+        Ok(())
+    }
+}
+
+/// Appends an entry, under the ledger's lock: the stored predictions first,
+/// then the ledger rewritten beside itself, synced, renamed into place and
+/// the folder synced, so that a crash leaves the old ledger or the new one.
+/// On failure the stored predictions and the copy are removed again.
 ///
 /// # Errors
 /// Disk failures.
-pub fn append(dir: &Path, ledger: &Ledger, body: EntryBody, stored_bytes: &[u8]) -> Result<Entry> {
+pub fn append(dir: &Path, ledger: &Ledger, _lock: &LedgerLock, body: EntryBody, stored_bytes: &[u8]) -> Result<Entry> {
     let scores = dir.join(SCORES_DIR);
     std::fs::create_dir_all(&scores).map_err(|e| Error::io(&scores, "cannot create", e))?;
     let stored_path: PathBuf = dir.join(&body.stored);
     let _ = std::fs::remove_file(&stored_path);
-    crate::io::write_small(&stored_path, stored_bytes)?;
-    let (entry, line) = body.seal();
-    let path = dir.join(FILE_NAME);
-    debug_assert!(ledger.intact(), "only an intact ledger is appended to");
-    let mut text = match std::fs::read_to_string(&path) {
-        Ok(t) => t,
-        Err(e) if e.kind() == std::io::ErrorKind::NotFound => String::new(),
-        Err(e) => return Err(Error::io(&path, "cannot read the ledger", e)),
-    };
-    text.push_str(&line);
-    text.push('\n');
-    let tmp = dir.join(format!(".{FILE_NAME}.cleave-{}", std::process::id()));
-    let _ = std::fs::remove_file(&tmp);
-    crate::io::write_small(&tmp, text.as_bytes())?;
-    std::fs::rename(&tmp, &path).map_err(|e| Error::io(&path, "cannot write the ledger", e))?;
-    Ok(entry)
+    let tmp = dir.join(format!("{TEMP_PREFIX}{}", std::process::id()));
+    let written = (|| {
+        crate::io::write_small(&stored_path, stored_bytes)?;
+        let (entry, line) = body.seal();
+        let path = dir.join(FILE_NAME);
+        debug_assert!(ledger.intact(), "only an intact ledger is appended to");
+        let mut text = match std::fs::read_to_string(&path) {
+            Ok(t) => t,
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => String::new(),
+            Err(e) => return Err(Error::io(&path, "cannot read the ledger", e)),
+        };
+        text.push_str(&line);
+        text.push('\n');
+        let _ = std::fs::remove_file(&tmp);
+        crate::io::write_small(&tmp, text.as_bytes())?;
+        std::fs::rename(&tmp, &path).map_err(|e| Error::io(&path, "cannot write the ledger", e))?;
+        Ok(entry)
+    })();
+    match written {
+        Ok(entry) => {
+            std::fs::File::open(dir).and_then(|d| d.sync_all()).map_err(|e| Error::io(dir, "cannot sync", e))?;
+            Ok(entry)
+        }
+        Err(e) => {
+            let _ = std::fs::remove_file(&tmp);
+            let _ = std::fs::remove_file(&stored_path);
+            Err(e)
+        }
+    }
 }

@@ -165,6 +165,27 @@ pub fn run(opts: &ScoreOptions) -> Result<Scoring> {
     let (lo, hi) = bootstrap_interval(n, opts.resamples as usize, opts.confidence, opts.seed, |idx| {
         metric_value(metric, &truth, &preds, positive, idx)
     });
+    if !(value.is_finite() && lo.is_finite() && hi.is_finite()) {
+        // A value the ledger cannot hold (1e300 squared): refused before anything is written.
+        let single = |i: usize| metric_value(metric, &truth, &preds, positive, &[i as u32]);
+        let what = match (0..n).find(|&i| single(i).is_some_and(|v| !v.is_finite())) {
+            Some(i) => format!(
+                "row_id `{}`: this prediction makes {} overflow (not a finite number); nothing was recorded",
+                ids[i],
+                metric.name()
+            ),
+            None => format!("{} is not a finite number on these predictions; nothing was recorded", metric.name()),
+        };
+        return Err(Error::malformed(&opts.predictions, what));
+    }
+    // One scoring at a time from here: the ledger is read again under the lock, checked, and
+    // appended to.
+    let lock = ledger::LedgerLock::take(&dir)?;
+    let ledger = ledger::read(&dir, None)?;
+    if !ledger.intact() {
+        return Ok(Scoring::LedgerBroken(ledger.problems));
+    }
+    lock.clean(&dir, &ledger)?;
     let seq = ledger.entries.len() as u64 + 1;
     let stored = format!("{}/{seq:06}.bin", ledger::SCORES_DIR);
     let stored_bytes = encode_predictions(&preds);
@@ -196,8 +217,9 @@ pub fn run(opts: &ScoreOptions) -> Result<Scoring> {
     // Every earlier submission of this metric is read and checked before anything is written, so
     // that a bad stored file refuses the scoring instead of failing after the entry was appended.
     let mut earlier = stored_of(&dir, &ledger, &truth, metric)?;
-    let entry = ledger::append(&dir, &ledger, body, &stored_bytes)?;
+    let entry = ledger::append(&dir, &ledger, &lock, body, &stored_bytes)?;
     let ledger = ledger::read(&dir, Some(&entry.entry))?;
+    drop(lock);
     earlier.push((preds, positive));
     let best = best_from(&ledger, &truth, metric, &earlier);
     Ok(Scoring::Scored(ScoreReport {

@@ -7,6 +7,7 @@ mod golden;
 mod hand_made;
 mod mutated;
 mod reference;
+mod reliability;
 mod score;
 mod split;
 mod structure;

@@ -71,7 +71,8 @@ impl Test {
         self
     }
 
-    pub fn run(&self, args: &[&str]) -> Run {
+    /// The command `cleave ARGS` in the test folder, with the test's environment.
+    pub fn command(&self, args: &[&str]) -> Command {
         let mut cmd = Command::new(BIN);
         cmd.args(args).current_dir(self.dir.path()).env_remove("NO_COLOR").env("COLUMNS", "100");
         for (k, _) in std::env::vars() {
@@ -82,6 +83,11 @@ impl Test {
         for (k, v) in &self.env {
             cmd.env(k, v);
         }
+        cmd
+    }
+
+    pub fn run(&self, args: &[&str]) -> Run {
+        let mut cmd = self.command(args);
         let out = cmd.output().expect("run cleave");
         Run {
             code: out.status.code().unwrap_or(-1),
