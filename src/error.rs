@@ -104,6 +104,14 @@ pub enum Error {
         what: String,
     },
 
+    /// SIGINT or SIGTERM arrived: the command stopped and removed what it had
+    /// begun.
+    #[error("interrupted by signal {signal}: stopped, and nothing was left half-written")]
+    Interrupted {
+        /// The signal's number (2 for SIGINT, 15 for SIGTERM).
+        signal: i32,
+    },
+
     /// Options that cannot be honoured.
     #[error("{0}")]
     Options(String),

@@ -51,6 +51,7 @@ pub enum Outcome {
 /// Runs the command line and returns the process exit code.
 pub fn main() -> ExitCode {
     install_panic_hook();
+    crate::failpoint::arm(failpoints());
     let cli = match Cli::try_parse() {
         Ok(cli) => cli,
         Err(e) => {
@@ -72,6 +73,11 @@ pub fn main() -> ExitCode {
         Ok(Outcome::Ok) => ExitCode::SUCCESS,
         Ok(Outcome::Finding) => ExitCode::from(1),
         Err(e) if output::is_broken_pipe(&e) => ExitCode::SUCCESS,
+        Err(e) if matches!(e.downcast_ref::<crate::Error>(), Some(crate::Error::Interrupted { .. })) => {
+            output::error(&e);
+            let Some(crate::Error::Interrupted { signal }) = e.downcast_ref::<crate::Error>() else { unreachable!() };
+            ExitCode::from(128u8.saturating_add(*signal as u8))
+        }
         Err(e) => {
             output::error(&e);
             ExitCode::from(2)
@@ -97,12 +103,19 @@ fn parse_format(s: &str) -> Result<crate::io::Format, String> {
 
 /// The manifest's creation time: `SOURCE_DATE_EPOCH` when set (so that two
 /// runs can be byte-identical), else now; RFC 3339 in UTC, whole seconds.
+/// The failpoints a test armed (`CLEAVE_FAILPOINT`, comma-separated; see
+/// [`crate::failpoint`]).
+#[allow(clippy::disallowed_methods)]
+fn failpoints() -> Vec<String> {
+    std::env::var("CLEAVE_FAILPOINT").map(|v| v.split(',').map(str::to_string).collect()).unwrap_or_default()
+}
+
 /// The command line's one look at the environment and the clock.
 #[allow(clippy::disallowed_methods)]
 fn creation_time() -> anyhow::Result<String> {
     let secs = match std::env::var("SOURCE_DATE_EPOCH") {
         Ok(v) => {
-            let t = v.trim();
+            let t = v.as_str();
             if t.is_empty() || !t.bytes().all(|b| b.is_ascii_digit()) {
                 anyhow::bail!("SOURCE_DATE_EPOCH `{v}` is not a whole number of seconds since 1970-01-01");
             }

@@ -83,6 +83,7 @@ pub(super) fn print_problems(problems: &[Problem]) -> String {
 }
 
 pub fn run(args: ScoreArgs) -> anyhow::Result<Outcome> {
+    crate::interrupt::install();
     let opts = ScoreOptions {
         predictions: args.predictions.clone(),
         format: args.format,

@@ -64,9 +64,12 @@ pub struct Args {
     /// Codec of Parquet partition files: none, snappy, lz4, gzip[:LEVEL], zstd[:LEVEL], brotli[:LEVEL] (default: the input's codec when it is Parquet, else snappy).
     #[arg(long, value_name = "CODEC", value_parser = parse_compression)]
     compression: Option<(parquet::basic::Compression, String)>,
-    /// Replace the output folder if it exists.
+    /// Replace the output folder if it exists (only the folder of a split; one holding a ledger needs --discard-ledger too).
     #[arg(long)]
     force: bool,
+    /// With --force, move the folder's ledger and stored scorings to OUT.ledger-N beside it instead of refusing.
+    #[arg(long, requires = "force")]
+    discard_ledger: bool,
     /// Print one JSON document instead of text.
     #[arg(long)]
     json: bool,
@@ -77,6 +80,7 @@ fn parse_compression(s: &str) -> Result<(parquet::basic::Compression, String), c
 }
 
 pub fn run(args: Args) -> anyhow::Result<Outcome> {
+    crate::interrupt::install();
     let ratios = Ratios::parse(&args.ratios)?;
     let folds = args.folds.as_deref().map(|f| FoldCount::parse(f).map(|c| (c, f.to_string()))).transpose()?;
     let cfg = SplitConfig {
@@ -86,6 +90,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         compression: args.compression,
         out: args.out.clone(),
         force: args.force,
+        discard_ledger: args.discard_ledger,
         ratios,
         seed: args.seed,
         stratify: args.stratify,

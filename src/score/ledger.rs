@@ -295,6 +295,7 @@ pub fn append(dir: &Path, ledger: &Ledger, _lock: &LedgerLock, body: EntryBody, 
     let tmp = dir.join(format!("{TEMP_PREFIX}{}", std::process::id()));
     let written = (|| {
         crate::io::write_small(&stored_path, stored_bytes)?;
+        crate::failpoint::kill_at("score-after-stored");
         let (entry, line) = body.seal();
         let path = dir.join(FILE_NAME);
         debug_assert!(ledger.intact(), "only an intact ledger is appended to");
@@ -307,7 +308,9 @@ pub fn append(dir: &Path, ledger: &Ledger, _lock: &LedgerLock, body: EntryBody, 
         text.push('\n');
         let _ = std::fs::remove_file(&tmp);
         crate::io::write_small(&tmp, text.as_bytes())?;
+        crate::failpoint::kill_at("score-after-copy");
         std::fs::rename(&tmp, &path).map_err(|e| Error::io(&path, "cannot write the ledger", e))?;
+        crate::failpoint::kill_at("score-after-rename");
         Ok(entry)
     })();
     match written {

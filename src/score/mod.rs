@@ -180,6 +180,7 @@ pub fn run(opts: &ScoreOptions) -> Result<Scoring> {
     }
     // One scoring at a time from here: the ledger is read again under the lock, checked, and
     // appended to.
+    crate::interrupt::check()?;
     let lock = ledger::LedgerLock::take(&dir)?;
     let ledger = ledger::read(&dir, None)?;
     if !ledger.intact() {
@@ -217,6 +218,7 @@ pub fn run(opts: &ScoreOptions) -> Result<Scoring> {
     // Every earlier submission of this metric is read and checked before anything is written, so
     // that a bad stored file refuses the scoring instead of failing after the entry was appended.
     let mut earlier = stored_of(&dir, &ledger, &truth, metric)?;
+    crate::interrupt::check()?;
     let entry = ledger::append(&dir, &ledger, &lock, body, &stored_bytes)?;
     let ledger = ledger::read(&dir, Some(&entry.entry))?;
     drop(lock);

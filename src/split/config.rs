@@ -26,8 +26,11 @@ pub struct SplitConfig {
     pub compression: Option<(parquet::basic::Compression, String)>,
     /// The output folder.
     pub out: PathBuf,
-    /// Replace an existing output folder.
+    /// Replace an existing output folder (only a split's folder).
     pub force: bool,
+    /// With `force`, archive the folder's ledger and stored scorings beside
+    /// it instead of refusing to replace it.
+    pub discard_ledger: bool,
     /// The shares.
     pub ratios: Ratios,
     /// The seed.

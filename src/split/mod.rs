@@ -62,8 +62,9 @@ pub struct SplitOutcome {
 /// failures; nothing is left behind on error.
 pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     config::check_combinations(cfg)?;
-    output::check_output(cfg)?;
     let _lock = OutputLock::take(&cfg.out)?;
+    let mut said = output::recover(&cfg.out)?;
+    output::check_output(cfg)?;
     let mut opened = config::open(cfg)?;
     let facts = pass_one::first_pass(cfg, &mut opened)?;
     // Pass two's reading starts now: its first batches are decoded while
@@ -73,13 +74,17 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let staging = Staging::create(&cfg.out)?;
     let written = pass_two::write(cfg, &opened, &facts, &plan, batches, &staging.path)?;
     let source_summary = opened.source_hash.take().expect("started when opened").join()?;
-    let record::Recorded { manifest, warnings, dropped_by_gap, dropped_by_group } =
+    let record::Recorded { manifest, mut warnings, dropped_by_gap, dropped_by_group } =
         record::record(cfg, &opened, &facts, plan, written, source_summary);
     let text = manifest.to_text();
     io::write_small(&staging.path.join(manifest::FILE_NAME), text.as_bytes())?;
     let checksum = text.trim_end().rsplit(' ').next().expect("checksum line").to_string();
     output::sync_dir(&staging.path)?;
-    output::commit(staging, &cfg.out, cfg.force)?;
+    crate::interrupt::check()?;
+    crate::failpoint::kill_at("split-before-commit");
+    said.extend(output::commit(staging, &cfg.out, cfg.force, cfg.discard_ledger)?);
+    said.append(&mut warnings);
+    let warnings = said;
     let manifest = Manifest { checksum: Some(checksum.clone()), ..manifest };
     Ok(SplitOutcome { manifest, manifest_checksum: checksum, warnings, dropped_by_gap, dropped_by_group })
 }

@@ -7,6 +7,13 @@ use std::path::{Path, PathBuf};
 
 use super::SplitConfig;
 use crate::error::{Error, Result};
+use crate::seal::manifest;
+
+/// What a folder holds besides a split: the evaluator's ledger (named here, as
+/// `split` may not use the score room).
+const LEDGER: &str = "ledger.jsonl";
+const SCORES: &str = "scores";
+const LEDGER_LOCK: &str = ".ledger.lock";
 
 /// The staging folder beside the target; removed unless the split got to
 /// the end.
@@ -77,8 +84,55 @@ fn sibling(out: &Path, tag: &str) -> PathBuf {
     parent.join(format!(".{name}.cleave-{tag}-{}", std::process::id()))
 }
 
+/// Puts right what a killed split left beside `out` (the caller holds the
+/// output lock, so no live split owns them): a parked old folder goes back
+/// into place when the target is missing and is removed otherwise; staging
+/// folders are removed. Returns a line for each, to tell the user.
+///
+/// # Errors
+/// A leftover that cannot be moved or removed.
+pub(super) fn recover(out: &Path) -> Result<Vec<String>> {
+    let name = out.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| "out".into());
+    let parent = out.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
+    let mut said = Vec::new();
+    let Ok(list) = std::fs::read_dir(parent) else { return Ok(said) };
+    let mut parked = Vec::new();
+    let mut staging = Vec::new();
+    for e in list.flatten() {
+        let file = e.file_name().to_string_lossy().into_owned();
+        if let Some(rest) = file.strip_prefix(&format!(".{name}.cleave-")) {
+            if rest.starts_with("old-") {
+                parked.push(e.path());
+            } else if rest.starts_with("staging-") {
+                staging.push(e.path());
+            }
+        }
+    }
+    parked.sort();
+    staging.sort();
+    for p in parked {
+        if std::fs::symlink_metadata(out).is_err() {
+            std::fs::rename(&p, out).map_err(|e| Error::io(&p, "cannot move the parked folder back", e))?;
+            said.push(format!(
+                "`{}` was missing after a split killed while replacing it; its previous contents were moved back from `{}`",
+                out.display(),
+                p.display()
+            ));
+        } else {
+            std::fs::remove_dir_all(&p).map_err(|e| Error::io(&p, "cannot remove the leftover", e))?;
+            said.push(format!("removed `{}`, the replaced folder a killed split left behind", p.display()));
+        }
+    }
+    for p in staging {
+        std::fs::remove_dir_all(&p).map_err(|e| Error::io(&p, "cannot remove the leftover", e))?;
+        said.push(format!("removed `{}`, the unfinished output of a killed split", p.display()));
+    }
+    Ok(said)
+}
+
 /// Refuses an output folder that is a file, is not empty (without
-/// `--force`), or holds the input.
+/// `--force`), is not a split's folder (with `--force`), holds a ledger
+/// (without `--discard-ledger`), or holds the input.
 pub(super) fn check_output(cfg: &SplitConfig) -> Result<()> {
     let out = &cfg.out;
     if let Ok(meta) = std::fs::symlink_metadata(out) {
@@ -98,6 +152,23 @@ pub(super) fn check_output(cfg: &SplitConfig) -> Result<()> {
                 out.display()
             )));
         }
+        if !empty {
+            if manifest::load(out).is_err() {
+                return Err(Error::Options(format!(
+                    "`{}` is not the folder of a split (it has no readable {}); --force replaces only a split's folder",
+                    out.display(),
+                    manifest::FILE_NAME
+                )));
+            }
+            if let Some(entries) = ledger_entries(out) {
+                if !cfg.discard_ledger {
+                    return Err(Error::Options(format!(
+                        "`{}` holds the evaluator's ledger ({entries} scoring(s)); pass --discard-ledger to archive it beside the folder and replace the split",
+                        out.display()
+                    )));
+                }
+            }
+        }
     }
     Ok(())
 }
@@ -107,14 +178,98 @@ pub(super) fn sync_dir(path: &Path) -> Result<()> {
     std::fs::File::open(path).and_then(|f| f.sync_all()).map_err(|e| Error::io(path, "cannot sync", e))
 }
 
+/// The entries of `dir`'s ledger when it has a ledger or stored scorings.
+fn ledger_entries(dir: &Path) -> Option<usize> {
+    let ledger = dir.join(LEDGER);
+    let scores = dir.join(SCORES);
+    if !ledger.exists() && !scores.exists() {
+        return None;
+    }
+    Some(std::fs::read_to_string(&ledger).map(|t| t.lines().count()).unwrap_or(0))
+}
+
+/// Moves the ledger, the stored scorings and the ledger's lock of `out` into
+/// a new folder `NAME.ledger-K` beside it; returns a line saying where.
+fn archive_ledger(out: &Path) -> Result<String> {
+    let name = out.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| "out".into());
+    let parent = out.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
+    let entries = ledger_entries(out).unwrap_or(0);
+    let mut k = 1;
+    let archive = loop {
+        let candidate = parent.join(format!("{name}.ledger-{k}"));
+        match std::fs::create_dir(&candidate) {
+            Ok(()) => break candidate,
+            Err(e) if e.kind() == std::io::ErrorKind::AlreadyExists => k += 1,
+            Err(e) => return Err(Error::io(&candidate, "cannot create", e)),
+        }
+    };
+    for file in [LEDGER, SCORES, LEDGER_LOCK] {
+        let from = out.join(file);
+        if std::fs::symlink_metadata(&from).is_ok() {
+            std::fs::rename(&from, archive.join(file)).map_err(|e| Error::io(&from, "cannot archive", e))?;
+        }
+    }
+    sync_dir(&archive)?;
+    sync_dir(out)?;
+    Ok(format!(
+        "the ledger of `{}` ({entries} scoring(s)) and its stored predictions were archived in `{}`",
+        out.display(),
+        archive.display()
+    ))
+}
+
+/// Swaps two paths in one step, where the system can (Linux `renameat2`
+/// with `RENAME_EXCHANGE`): both exist at every instant.
+#[cfg(target_os = "linux")]
+#[allow(unsafe_code)]
+fn exchange(a: &Path, b: &Path) -> std::io::Result<()> {
+    use std::os::unix::ffi::OsStrExt;
+    let a = std::ffi::CString::new(a.as_os_str().as_bytes())?;
+    let b = std::ffi::CString::new(b.as_os_str().as_bytes())?;
+    // SAFETY: both arguments are NUL-terminated paths that outlive the call;
+    // renameat2 reads them and touches no memory of ours besides.
+    let r = unsafe { libc::renameat2(libc::AT_FDCWD, a.as_ptr(), libc::AT_FDCWD, b.as_ptr(), libc::RENAME_EXCHANGE) };
+    if r == 0 {
+        Ok(())
+    } else {
+        Err(std::io::Error::last_os_error())
+    }
+}
+
+#[cfg(not(target_os = "linux"))]
+fn exchange(_: &Path, _: &Path) -> std::io::Result<()> {
+    Err(std::io::Error::from(std::io::ErrorKind::Unsupported))
+}
+
 /// Renames the staging folder into place, replacing an existing folder only
-/// with `force` and only after the new one is complete. Without `force` the
-/// rename itself refuses a folder that another run filled in the meantime.
-pub(super) fn commit(mut staging: Staging, out: &Path, force: bool) -> Result<()> {
-    let old = sibling(out, "old");
+/// with `force` and only after the new one is complete; with
+/// `discard_ledger` its ledger is archived first. Without `force` the rename
+/// itself refuses a folder that another run filled in the meantime. The swap
+/// exchanges the two folders in one step where the system can, so that the
+/// target exists at every instant; elsewhere the old folder is parked first,
+/// and a killed run's parked folder is moved back by the next run
+/// ([`recover`]). Returns lines for the user.
+pub(super) fn commit(mut staging: Staging, out: &Path, force: bool, discard_ledger: bool) -> Result<Vec<String>> {
+    let mut said = Vec::new();
     let replaced = force && out.exists();
+    if replaced && discard_ledger && ledger_entries(out).is_some() {
+        said.push(archive_ledger(out)?);
+        crate::failpoint::kill_at("split-after-archive");
+    }
+    if replaced && !crate::failpoint::armed("split-no-exchange") && exchange(&staging.path, out).is_ok() {
+        // The staging path now holds the old folder.
+        staging.done = true;
+        crate::failpoint::kill_at("split-after-exchange");
+        let _ = std::fs::remove_dir_all(&staging.path);
+        if let Some(parent) = out.parent().filter(|p| !p.as_os_str().is_empty()) {
+            let _ = sync_dir(parent);
+        }
+        return Ok(said);
+    }
+    let old = sibling(out, "old");
     if replaced {
         std::fs::rename(out, &old).map_err(|e| Error::io(out, "cannot move the old folder aside", e))?;
+        crate::failpoint::kill_at("split-after-park");
     }
     if let Err(e) = std::fs::rename(&staging.path, out) {
         if replaced {
@@ -129,5 +284,5 @@ pub(super) fn commit(mut staging: Staging, out: &Path, force: bool) -> Result<()
     if let Some(parent) = out.parent().filter(|p| !p.as_os_str().is_empty()) {
         let _ = sync_dir(parent);
     }
-    Ok(())
+    Ok(said)
 }

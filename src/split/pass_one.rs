@@ -90,6 +90,7 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     let mut fresh: Vec<RowDigest> = Vec::new();
     let mut rows = 0u64;
     while let Some(batch) = next_batch()? {
+        crate::interrupt::check()?;
         rows += batch.data.num_rows() as u64;
         let dictionary = match group {
             [column] if group_spec.is_some() => batch

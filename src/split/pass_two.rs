@@ -108,6 +108,7 @@ pub(super) fn write(
     let mut test_digests = Vec::new();
     let row_ids = RowIds::new(cfg.seed);
     while let Some(batch) = batches.next_batch()? {
+        crate::interrupt::check()?;
         let n = batch.data.num_rows();
         let start = (batch.first_row - 1) as usize;
         if start + n > partition.len() {

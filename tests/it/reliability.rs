@@ -127,3 +127,167 @@ fn leftovers_of_a_dead_scoring_are_cleaned_by_the_next() {
     assert_ne!(stored, b"predictions of a scoring that never got its entry");
     t.ok(&["ledger", "out"]);
 }
+
+/// Every file under `dir` with its bytes (relative names), for "nothing changed" checks.
+fn tree(dir: &std::path::Path) -> Vec<(String, Vec<u8>)> {
+    let mut out = Vec::new();
+    let mut stack = vec![dir.to_path_buf()];
+    while let Some(d) = stack.pop() {
+        for e in std::fs::read_dir(&d).unwrap() {
+            let p = e.unwrap().path();
+            if p.is_dir() {
+                stack.push(p);
+            } else {
+                out.push((p.strip_prefix(dir).unwrap().to_string_lossy().into_owned(), std::fs::read(&p).unwrap()));
+            }
+        }
+    }
+    out.sort();
+    out
+}
+
+/// Names beside the output that a split may leave only while it runs.
+fn leftovers(t: &Test) -> Vec<String> {
+    t.entries().into_iter().filter(|n| n.starts_with(".out.cleave-")).collect()
+}
+
+#[test]
+fn force_replaces_only_a_splits_folder_and_never_a_ledger_unasked() {
+    let t = Test::new();
+    t.demo();
+    // A folder that is not a split's.
+    t.write("notes/notes.txt", "field notes from the Alder station");
+    t.write("notes/src/a.rs", "fn main() {}");
+    let before = tree(&t.path("notes"));
+    let r = t.run(&["split", "water-quality.csv", "--out", "notes", "--force"]);
+    r.fails_with(&["notes", "not the folder of a split"]);
+    assert_eq!(tree(&t.path("notes")), before);
+    // A split's folder with the evaluator's ledger.
+    let files = folder_with_predictions(&t);
+    t.ok(&["score", &files[0], "--against", "out"]);
+    let before = tree(&t.path("out"));
+    let r = t.run(&["split", "water-quality.csv", "--out", "out", "--force", "--seed", "9"]);
+    r.fails_with(&["ledger", "--discard-ledger"]);
+    assert_eq!(tree(&t.path("out")), before);
+    // Asked: the ledger and the stored scorings are archived beside the folder, whole.
+    let ledger = std::fs::read(t.path("out/ledger.jsonl")).unwrap();
+    let r = t.ok(&["split", "water-quality.csv", "--out", "out", "--force", "--discard-ledger", "--seed", "9"]);
+    assert!(r.stderr.contains("archived in"), "{}", r.stderr);
+    assert_eq!(std::fs::read(t.path("out.ledger-1/ledger.jsonl")).unwrap(), ledger);
+    assert_eq!(std::fs::read_dir(t.path("out.ledger-1/scores")).unwrap().count(), 1);
+    assert!(!t.path("out/ledger.jsonl").exists());
+    t.ok(&["verify", "out"]);
+    assert!(leftovers(&t).is_empty(), "{:?}", leftovers(&t));
+}
+
+/// The seed recorded in a folder's manifest.
+fn seed_of(t: &Test) -> u64 {
+    crate::util::manifest(&t.path("out"))["options"]["seed"].as_u64().unwrap()
+}
+
+/// `split --force` killed (SIGKILL) at each of its steps: the target verifies as the old split or
+/// the new one, the ledger is in the folder or archived whole, and after one more run nothing
+/// stale remains.
+#[test]
+fn split_killed_at_each_step_leaves_the_old_folder_or_the_new() {
+    for failpoint in
+        ["split-before-commit", "split-after-archive", "split-after-exchange", "split-no-exchange,split-after-park"]
+    {
+        let base = Test::new();
+        let files = folder_with_predictions(&base);
+        base.ok(&["score", &files[0], "--against", "out"]);
+        let ledger = std::fs::read(base.path("out/ledger.jsonl")).unwrap();
+        let t = base.env("CLEAVE_FAILPOINT", failpoint);
+        let args = ["split", "water-quality.csv", "--out", "out", "--force", "--discard-ledger", "--seed", "5"];
+        let killed = t.run(&args);
+        assert_eq!(killed.code, -1, "{failpoint}: not killed: {}", killed.stderr);
+        let at = t.run(&["verify", "out"]);
+        if at.code != 0 {
+            // Only a parked folder may leave the target missing, and the next run puts it back.
+            assert!(failpoint.contains("park"), "{failpoint}: {}", at.stderr);
+            assert!(!t.path("out").exists());
+        } else {
+            assert!([0, 5].contains(&seed_of(&t)), "{failpoint}");
+        }
+        let archived = t.path("out.ledger-1/ledger.jsonl");
+        let kept = t.path("out/ledger.jsonl");
+        assert!(
+            std::fs::read(&kept).ok().as_ref() == Some(&ledger)
+                || std::fs::read(&archived).ok().as_ref() == Some(&ledger),
+            "{failpoint}: the ledger was lost"
+        );
+        let t = t.env("CLEAVE_FAILPOINT", "");
+        let again = t.ok(&args);
+        t.ok(&["verify", "out"]);
+        assert_eq!(seed_of(&t), 5);
+        assert!(leftovers(&t).is_empty(), "{failpoint}: {:?}\n{}", leftovers(&t), again.stderr);
+    }
+}
+
+/// `score` killed at each of its writes: the ledger verifies (without the entry, or with it and
+/// its stored predictions), and the next scoring leaves nothing stale.
+#[test]
+fn score_killed_at_each_write_leaves_the_old_ledger_or_the_new() {
+    for failpoint in ["score-after-stored", "score-after-copy", "score-after-rename"] {
+        let base = Test::new();
+        let files = folder_with_predictions(&base);
+        base.ok(&["score", &files[0], "--against", "out"]);
+        let t = base.env("CLEAVE_FAILPOINT", failpoint);
+        let killed = t.run(&["score", &files[1], "--against", "out", "--name", "killed"]);
+        assert_eq!(killed.code, -1, "{failpoint}: not killed: {}", killed.stderr);
+        let t = t.env("CLEAVE_FAILPOINT", "");
+        let l = t.run(&["ledger", "out"]);
+        assert_eq!(l.code, 0, "{failpoint}: {}\n{}", l.stdout, l.stderr);
+        let n = ledger_names(&t).len();
+        assert!(n == 1 || n == 2, "{failpoint}: {n}");
+        t.ok(&["score", &files[2], "--against", "out", "--name", "after"]);
+        t.ok(&["ledger", "out"]);
+        let entries = ledger_names(&t).len();
+        assert_eq!(std::fs::read_dir(t.path("out/scores")).unwrap().count(), entries, "{failpoint}");
+        let stray: Vec<String> = std::fs::read_dir(t.path("out"))
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+            .filter(|n| n.starts_with(".ledger.jsonl."))
+            .collect();
+        assert!(stray.is_empty(), "{failpoint}: {stray:?}");
+    }
+}
+
+/// SIGINT and SIGTERM mid-split: exit 130 / 143, one line, no staging folder, no lock, no output.
+#[test]
+fn sigint_and_sigterm_stop_a_split_and_remove_what_it_began() {
+    let t = Test::new();
+    let mut text = String::from("station,river,turbidity_ntu,bloom_class\n");
+    for i in 0..600_000u32 {
+        text.push_str(&format!(
+            "S{:03},{},{}.{},{}\n",
+            i % 500,
+            ["Alder", "Brennock"][(i % 2) as usize],
+            i % 97,
+            i % 10,
+            i % 4
+        ));
+    }
+    t.write("big.csv", text);
+    for (signal, code) in [("-INT", 130), ("-TERM", 143)] {
+        let child = t.command(&["split", "big.csv", "--out", "out", "--stratify", "bloom_class"]);
+        let child = { child }.stderr(Stdio::piped()).stdout(Stdio::piped()).spawn().unwrap();
+        // The lock appears when the split starts writing anything.
+        let lock = t.path(".out.cleave-lock");
+        let start = std::time::Instant::now();
+        while !lock.exists() && start.elapsed() < std::time::Duration::from_secs(20) {
+            std::thread::sleep(std::time::Duration::from_millis(2));
+        }
+        std::thread::sleep(std::time::Duration::from_millis(30));
+        let sent = std::process::Command::new("kill").args([signal, &child.id().to_string()]).status().unwrap();
+        assert!(sent.success());
+        let out = child.wait_with_output().unwrap();
+        let stderr = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(code), "{signal}: {stderr}");
+        assert_eq!(stderr.lines().count(), 1, "{stderr}");
+        assert!(stderr.contains("interrupted"), "{stderr}");
+        assert!(!t.path("out").exists());
+        let left: Vec<String> = t.entries().into_iter().filter(|n| n.starts_with(".out.")).collect();
+        assert!(left.is_empty(), "{signal}: {left:?}");
+    }
+}
