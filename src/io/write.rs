@@ -105,11 +105,22 @@ enum Inner {
     Json(arrow_json::LineDelimitedWriter<Sink>),
 }
 
+/// Rows per block handed to the Parquet and Arrow IPC encoders. Their
+/// layout (IPC record batches; Parquet pages, cut at multiples of the
+/// encoder's 1,024-row mini-batches from the start of each block; row groups)
+/// follows the blocks they are given, so the blocks are cut at fixed row
+/// counts of the file, whatever batches arrived: the bytes then depend on the
+/// data alone, not on the thread count or the input's row groups.
+pub const WRITE_ROWS: usize = 32_768;
+
 /// Writes one partition file.
 pub struct PartitionWriter {
     pub(super) path: PathBuf,
     pub(super) format: Format,
     inner: Inner,
+    /// Rows waiting for a full block (Parquet and Arrow IPC), in order.
+    pending: Vec<RecordBatch>,
+    pending_rows: usize,
 }
 
 impl PartitionWriter {
@@ -152,7 +163,7 @@ impl PartitionWriter {
             }
             (Format::Jsonl, _) => Inner::Json(arrow_json::LineDelimitedWriter::new(sink)),
         };
-        Ok(PartitionWriter { path: path.to_path_buf(), format, inner })
+        Ok(PartitionWriter { path: path.to_path_buf(), format, inner, pending: Vec::new(), pending_rows: 0 })
     }
 
     fn enc(&self, e: impl Into<crate::error::Cause>) -> Error {
@@ -167,6 +178,45 @@ impl PartitionWriter {
         if batch.num_rows() == 0 {
             return Ok(());
         }
+        if matches!(self.inner, Inner::Parquet(_) | Inner::Ipc(_)) {
+            self.pending_rows += batch.num_rows();
+            self.pending.push(batch.clone());
+            while self.pending_rows >= WRITE_ROWS {
+                let block = self.take_block(WRITE_ROWS)?;
+                self.encode(&block)?;
+            }
+            return Ok(());
+        }
+        self.encode(batch)
+    }
+
+    /// The first `n` pending rows as one batch: a slice of the first pending
+    /// batch when it holds them (no copy), else the slices concatenated.
+    fn take_block(&mut self, n: usize) -> Result<RecordBatch> {
+        let mut parts = Vec::new();
+        let mut need = n;
+        while need > 0 {
+            let first = &self.pending[0];
+            let rows = first.num_rows();
+            if rows <= need {
+                parts.push(self.pending.remove(0));
+                need -= rows;
+            } else {
+                parts.push(first.slice(0, need));
+                self.pending[0] = first.slice(need, rows - need);
+                need = 0;
+            }
+        }
+        self.pending_rows -= n;
+        if parts.len() == 1 {
+            return Ok(parts.pop().expect("one part"));
+        }
+        let schema = parts[0].schema();
+        arrow_select::concat::concat_batches(&schema, &parts).map_err(|e| self.enc(e))
+    }
+
+    /// Hands a batch to the encoder.
+    fn encode(&mut self, batch: &RecordBatch) -> Result<()> {
         let r = match &mut self.inner {
             Inner::CsvRaw(_) => unreachable!("raw CSV partitions take raw records"),
             Inner::Csv(w) => w.write(batch).map_err(|e| e.to_string()),
@@ -192,7 +242,11 @@ impl PartitionWriter {
     ///
     /// # Errors
     /// Encoder or disk failures.
-    pub fn finish(self) -> Result<FileSummary> {
+    pub fn finish(mut self) -> Result<FileSummary> {
+        if self.pending_rows > 0 {
+            let block = self.take_block(self.pending_rows)?;
+            self.encode(&block)?;
+        }
         let path = self.path.clone();
         let format = self.format;
         let enc = |e: crate::error::Cause| Error::encode(path.clone(), format, e);

@@ -291,3 +291,88 @@ fn sigint_and_sigterm_stop_a_split_and_remove_what_it_began() {
         assert!(left.is_empty(), "{signal}: {left:?}");
     }
 }
+
+/// A table of `n` water samples, as one Arrow batch.
+fn samples(n: usize) -> arrow_array::RecordBatch {
+    use arrow_array::{ArrayRef, Float64Array, Int64Array, StringArray};
+    use std::sync::Arc;
+    let station = StringArray::from_iter_values((0..n).map(|i| format!("S{:03}", (i * 7) % 300)));
+    let turbidity = Float64Array::from_iter_values((0..n).map(|i| ((i * 37) % 1000) as f64 / 10.0));
+    let class = StringArray::from_iter_values((0..n).map(|i| ["none", "low", "moderate", "high"][(i * 13) % 4]));
+    let reading = Int64Array::from_iter_values((0..n as i64).map(|i| i * 3 + 1));
+    arrow_array::RecordBatch::try_from_iter([
+        ("station", Arc::new(station) as ArrayRef),
+        ("turbidity_ntu", Arc::new(turbidity) as ArrayRef),
+        ("bloom_class", Arc::new(class) as ArrayRef),
+        ("reading", Arc::new(reading) as ArrayRef),
+    ])
+    .unwrap()
+}
+
+/// 1, 2, 3 and 4 threads over a 12-row-group Parquet input, a many-batch Arrow IPC input and a CSV
+/// input give byte-identical folders (SOURCE_DATE_EPOCH is fixed by the harness).
+#[test]
+fn the_thread_count_changes_no_byte_of_a_split() {
+    let t = Test::new();
+    let n = 120_000;
+    let batch = samples(n);
+    // Parquet in 12 row groups of 10,000 rows.
+    let props =
+        parquet::file::properties::WriterProperties::builder().set_max_row_group_row_count(Some(n / 12)).build();
+    let file = std::fs::File::create(t.path("in.parquet")).unwrap();
+    let mut w = parquet::arrow::ArrowWriter::try_new(file, batch.schema(), Some(props)).unwrap();
+    w.write(&batch).unwrap();
+    let meta = w.close().unwrap();
+    assert_eq!(meta.num_row_groups(), 12);
+    // Arrow IPC in batches of uneven sizes.
+    let file = std::fs::File::create(t.path("in.arrow")).unwrap();
+    let mut w = arrow_ipc::writer::FileWriter::try_new(file, &batch.schema()).unwrap();
+    let mut at = 0;
+    for size in [1usize, 9_999, 30_000, 17, 40_000].iter().cycle() {
+        let size = (*size).min(n - at);
+        w.write(&batch.slice(at, size)).unwrap();
+        at += size;
+        if at == n {
+            break;
+        }
+    }
+    w.finish().unwrap();
+    // CSV.
+    let mut w = arrow_csv::Writer::new(std::fs::File::create(t.path("in.csv")).unwrap());
+    w.write(&batch).unwrap();
+    drop(w);
+    for input in ["in.parquet", "in.arrow", "in.csv"] {
+        let mut first: Option<Vec<(String, Vec<u8>)>> = None;
+        for threads in ["1", "2", "3", "4"] {
+            let out = format!("out-{threads}");
+            let run = t
+                .command(&[
+                    "split",
+                    input,
+                    "--out",
+                    &out,
+                    "--label",
+                    "bloom_class",
+                    "--stratify",
+                    "bloom_class",
+                    "--group",
+                    "station",
+                ])
+                .env("RAYON_NUM_THREADS", threads)
+                .output()
+                .unwrap();
+            assert_eq!(run.status.code(), Some(0), "{input} x{threads}: {}", String::from_utf8_lossy(&run.stderr));
+            let bytes = tree(&t.path(&out));
+            match &first {
+                None => first = Some(bytes),
+                Some(f) => {
+                    for ((name, a), (_, b)) in f.iter().zip(&bytes) {
+                        assert!(a == b, "{input}: `{name}` differs between 1 and {threads} threads");
+                    }
+                    assert_eq!(f.len(), bytes.len());
+                }
+            }
+            std::fs::remove_dir_all(t.path(&out)).unwrap();
+        }
+    }
+}
