@@ -85,9 +85,16 @@ impl FileReport {
         self.findings.values().any(|f| f.count > 0)
     }
 
-    /// No leaks, and every applicable kind checked (unless partial checks are allowed).
+    /// Whether at least one kind was compared: with none, a file is never
+    /// clean, partial checks allowed or not.
+    pub fn compared(&self) -> bool {
+        !self.findings.is_empty()
+    }
+
+    /// No leaks, some kind compared, and every applicable kind checked
+    /// (unless partial checks are allowed).
     pub fn clean(&self, allow_partial: bool) -> bool {
-        !self.leaks() && (allow_partial || self.not_checked.is_empty())
+        !self.leaks() && self.compared() && (allow_partial || self.not_checked.is_empty())
     }
 }
 
@@ -98,6 +105,8 @@ pub struct CheckOptions {
     pub max_examples: usize,
     /// Format of the checked files when the extension does not say.
     pub format: Option<Format>,
+    /// Accept a file with no data rows (otherwise an error: nothing would be compared).
+    pub allow_empty: bool,
 }
 
 /// Checks one file against the seal.
@@ -146,6 +155,13 @@ pub fn check_file(seal: &Seal, path: &Path, opts: &CheckOptions) -> Result<FileR
         }
         rows
     };
+
+    if rows_checked == 0 && !opts.allow_empty {
+        return Err(Error::malformed(
+            path,
+            "has no data rows, so nothing would be compared; pass --allow-empty to check it anyway",
+        ));
+    }
 
     // Collect.
     let mut findings = found.into_findings();

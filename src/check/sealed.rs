@@ -73,6 +73,9 @@ impl Seal {
         let read = |kind: SealKind| -> Result<Option<Vec<SealRecord>>> {
             let Some(sf) = m.seal_file(kind) else { return Ok(None) };
             let file = loaded.file(&sf.file);
+            if let Some(what) = manifest::irregular(&file) {
+                return Err(untrusted(&file, what));
+            }
             let bytes = match std::fs::read(&file) {
                 Ok(b) => b,
                 Err(e) if e.kind() == std::io::ErrorKind::NotFound && kind == SealKind::Rows => return Ok(None),

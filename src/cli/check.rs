@@ -30,9 +30,12 @@ pub struct Args {
     /// The digest key of a keyed seal.
     #[arg(long, value_name = "FILE")]
     digest_key: Option<PathBuf>,
-    /// Pass even when some kinds could not be checked (columns missing).
+    /// Pass even when some kinds could not be checked (columns missing); a file where no kind could be compared never passes.
     #[arg(long)]
     allow_partial: bool,
+    /// Accept a checked file with no data rows (an error otherwise: nothing would be compared).
+    #[arg(long)]
+    allow_empty: bool,
     /// Examples shown per kind of finding.
     #[arg(long, default_value_t = 5, value_name = "N")]
     max_examples: usize,
@@ -99,6 +102,8 @@ fn report_text(r: &FileReport, allow_partial: bool) -> String {
             "LEAKS FOUND"
         } else if r.clean(allow_partial) {
             "clean"
+        } else if !r.compared() {
+            "NOT CHECKED: no kind could be compared"
         } else {
             "NOT FULLY CHECKED"
         }
@@ -137,7 +142,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
     let pin = args.expect_manifest.as_deref().map(manifest::parse_pin).transpose()?;
     let key = args.digest_key.as_deref().map(crate::digest::DigestKey::read).transpose()?;
     let seal = Seal::open(&args.against, pin.as_deref(), key.as_ref())?;
-    let opts = CheckOptions { max_examples: args.max_examples, format: args.format };
+    let opts = CheckOptions { max_examples: args.max_examples, format: args.format, allow_empty: args.allow_empty };
     let mut reports = Vec::new();
     for f in &args.files {
         reports.push(check::check_file(&seal, f, &opts)?);

@@ -125,6 +125,14 @@ impl Ledger {
     }
 }
 
+/// Refuses a ledger file that is not a regular file of the folder.
+fn refuse_irregular(path: &Path) -> Result<()> {
+    match crate::seal::manifest::irregular(path) {
+        Some(what) => Err(Error::Manifest { path: path.to_path_buf(), what }),
+        None => Ok(()),
+    }
+}
+
 /// Whether `text` is a BLAKE3 hash as the ledger writes them: 64 lowercase hexadecimal digits.
 fn is_hash(text: &str) -> bool {
     text.len() == 64 && text.bytes().all(|b| b.is_ascii_digit() || (b'a'..=b'f').contains(&b))
@@ -137,6 +145,16 @@ fn is_hash(text: &str) -> bool {
 /// (a broken chain is not an error: it is reported in [`Ledger::problems`]).
 pub fn read(dir: &Path, expect_head: Option<&str>) -> Result<Ledger> {
     let path = dir.join(FILE_NAME);
+    refuse_irregular(&path)?;
+    let scores = dir.join(SCORES_DIR);
+    if std::fs::symlink_metadata(&scores).is_ok_and(|m| !m.is_dir() || m.file_type().is_symlink()) {
+        return Err(Error::Manifest {
+            path: scores,
+            what:
+                "is not a folder of the sealed folder (a symbolic link or a file); refusing to read or write through it"
+                    .into(),
+        });
+    }
     let text = match std::fs::read_to_string(&path) {
         Ok(t) => t,
         Err(e) if e.kind() == std::io::ErrorKind::NotFound => String::new(),
@@ -177,6 +195,9 @@ pub fn read(dir: &Path, expect_head: Option<&str>) -> Result<Ledger> {
             problem(format!("entry {n} does not follow entry {}: one was changed, removed or moved", n - 1));
         }
         let stored = dir.join(&e.body.stored);
+        if let Some(what) = crate::seal::manifest::irregular(&stored) {
+            problem(format!("the stored predictions of entry {n} (`{}`) {what}", e.body.stored));
+        }
         match std::fs::read(&stored) {
             Ok(bytes) if blake3::hash(&bytes).to_hex().as_str() == e.body.stored_blake3 => {}
             Ok(_) => problem(format!("the stored predictions of entry {n} (`{}`) changed", e.body.stored)),
@@ -215,12 +236,11 @@ impl LedgerLock {
     /// The lock file cannot be created, or the wait runs out.
     pub fn take(dir: &Path) -> Result<LedgerLock> {
         let path = dir.join(LOCK_NAME);
-        let file = std::fs::File::options()
-            .create(true)
-            .truncate(false)
-            .write(true)
-            .open(&path)
-            .map_err(|e| Error::io(&path, "cannot create the ledger's lock file", e))?;
+        let mut options = std::fs::File::options();
+        options.create(true).truncate(false).write(true);
+        #[cfg(unix)]
+        std::os::unix::fs::OpenOptionsExt::custom_flags(&mut options, libc::O_NOFOLLOW);
+        let file = options.open(&path).map_err(|e| Error::io(&path, "cannot create the ledger's lock file", e))?;
         let start = Instant::now();
         let mut pause = Duration::from_millis(1);
         loop {

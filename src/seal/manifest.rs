@@ -451,6 +451,32 @@ impl LoadedManifest {
     }
 }
 
+/// What is wrong with `path` as a file of a sealed folder, if anything: it
+/// must be a regular file of its own (not a symbolic link, not a hard link
+/// shared with a file elsewhere) whose parent is the folder itself, so that
+/// no command reads or writes outside the folder through it. A missing file
+/// is not this check's business.
+pub fn irregular(path: &Path) -> Option<String> {
+    let meta = std::fs::symlink_metadata(path).ok()?;
+    if meta.file_type().is_symlink() {
+        return Some("is a symbolic link; a sealed folder's files must be regular files inside it".into());
+    }
+    if !meta.is_file() {
+        return Some("is not a regular file".into());
+    }
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::MetadataExt;
+        if meta.nlink() > 1 {
+            return Some(format!(
+                "has {} hard links; a sealed folder's files must not be shared with files elsewhere",
+                meta.nlink()
+            ));
+        }
+    }
+    None
+}
+
 /// Resolves `PATH` as given to verify/show: a folder means its manifest.
 pub fn resolve(path: &Path) -> PathBuf {
     if path.is_dir() {
@@ -482,6 +508,9 @@ pub fn is_plain_name(name: &str) -> bool {
 /// checksum line, or naming a path outside its folder.
 pub fn load(path: &Path) -> Result<LoadedManifest> {
     let path = resolve(path);
+    if let Some(what) = irregular(&path) {
+        return Err(manifest_err(&path, what));
+    }
     let meta = std::fs::metadata(&path).map_err(|e| Error::io(&path, "cannot read the manifest", e))?;
     if meta.len() > MAX_BYTES {
         return Err(manifest_err(&path, format!("is {} bytes; manifests are at most {MAX_BYTES}", meta.len())));

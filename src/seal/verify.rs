@@ -150,6 +150,17 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
         let file = loaded.file(&part.file);
         digest_partition(&file, part.format, &hints, &spec, group_spec.as_ref(), fold_column(part), is_test, rows_hint)
     };
+    // Every listed file must be a regular file inside the folder.
+    let listed = parts
+        .iter()
+        .map(|p| p.file.as_str())
+        .chain(m.handoff.as_ref().map(|h| h.file.as_str()))
+        .chain(seal_files.iter().map(|f| f.file.as_str()));
+    for name in listed {
+        if let Some(what) = manifest::irregular(&loaded.file(name)) {
+            problem(name, what);
+        }
+    }
     // Every file hashed, and the partitions re-read in any case digested,
     // side by side.
     let (hashed, (mut contents, seals)) = rayon::join(
@@ -275,6 +286,16 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
             problem(&manifest_name, format!("the seal lists no {} digest file", kind.name()));
         }
     }
+    for what in cross_check(m) {
+        problem(&manifest_name, what);
+    }
+    if let (true, Some(h)) = (deep, &m.handoff) {
+        match count_rows(&loaded.file(&h.file), m.options.output_format) {
+            Ok(rows) if rows != h.rows => problem(&h.file, format!("has {rows} rows, the seal says {}", h.rows)),
+            Ok(_) => {}
+            Err(e) => problem(&h.file, format!("cannot be read: {e}")),
+        }
+    }
     Ok(VerifyReport {
         manifest_checksum: loaded.recorded.clone(),
         problems,
@@ -283,6 +304,74 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
         partitions_redigested,
         redigested: redigest,
     })
+}
+
+/// The manifest's fields that follow from one another, checked against each
+/// other: a manifest edited and re-sealed (its checksum recomputed) must
+/// still add up. Source rows are the partitions' rows and the rows left out;
+/// each partition's strata and folds add up to its rows; the test partition's
+/// rows are the seal files' records and the hand-off's rows; its groups are
+/// the groups seal file's records; a keyed seal names its key's fingerprint.
+fn cross_check(m: &manifest::Manifest) -> Vec<String> {
+    let mut out = Vec::new();
+    let kept: u64 = m.partitions.iter().map(|p| p.rows).sum();
+    let left_out: u64 =
+        m.partitions.iter().map(|p| p.dropped_by_gap.unwrap_or(0) + p.dropped_by_group_rule.unwrap_or(0)).sum();
+    if kept + left_out != m.source.rows {
+        out.push(format!(
+            "the source has {} rows, but the partitions hold {kept} and {left_out} were left out",
+            m.source.rows
+        ));
+    }
+    for p in &m.partitions {
+        let strata: u64 = p.strata.values().sum();
+        if !p.strata.is_empty() && strata != p.rows {
+            out.push(format!("the {} partition's strata add up to {strata} rows, not its {}", p.name, p.rows));
+        }
+        let folds: u64 = p.folds.values().sum();
+        if !p.folds.is_empty() && folds != p.rows {
+            out.push(format!("the {} partition's folds add up to {folds} rows, not its {}", p.name, p.rows));
+        }
+        if let (Some(g), Some(all)) = (p.groups, &m.groups) {
+            if g > all.count {
+                out.push(format!("the {} partition holds {g} groups of the split's {}", p.name, all.count));
+            }
+        }
+    }
+    if let Some(test) = m.partition(Partition::Test) {
+        for sf in &m.seal.files {
+            let expected = match sf.kind {
+                SealKind::Groups => test.groups,
+                _ => Some(test.rows),
+            };
+            if let Some(expected) = expected.filter(|&e| e != sf.records) {
+                out.push(format!(
+                    "the {} seal file holds {} records, but the test partition has {expected} {}",
+                    sf.kind.name(),
+                    sf.records,
+                    if sf.kind == SealKind::Groups { "groups" } else { "rows" }
+                ));
+            }
+        }
+        if let Some(h) = m.handoff.as_ref().filter(|h| h.rows != test.rows) {
+            out.push(format!("the label-free test file has {} rows, the test partition {}", h.rows, test.rows));
+        }
+    }
+    if m.digest.keyed && m.digest.key_fingerprint.is_none() {
+        out.push("the digests are keyed, but the manifest names no key fingerprint".into());
+    }
+    if m.seal.keyed != m.digest.keyed {
+        out.push("the seal and the digests disagree on whether the digests are keyed".into());
+    }
+    out
+}
+
+/// Rows of a table file, every batch read.
+fn count_rows(path: &Path, format: io::Format) -> Result<u64> {
+    let table = Table::open(path, format, &TypeHints::new())?;
+    let mut batches = table.batches(None, false)?;
+    while batches.next_batch()?.is_some() {}
+    Ok(batches.rows())
 }
 
 /// Whether sorted seal file records are exactly the `kind` digests of the test

@@ -199,7 +199,7 @@ fn read_folder(t: &Test, out: &Path) {
     let _ = manifest::load(out);
     let _ = verify(out, None, None, Depth { shareable: false, deep: true });
     if let Ok(seal) = Seal::open(&out.join("manifest.yaml"), None, None) {
-        let opts = CheckOptions { max_examples: 3, format: None };
+        let opts = CheckOptions { max_examples: 3, format: None, allow_empty: false };
         let _ = check_file(&seal, &t.path("water-quality.csv"), &opts);
     }
     if let (Ok(loaded), Ok(ledger)) = (manifest::load(out), score::ledger::read(out, None)) {

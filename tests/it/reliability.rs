@@ -376,3 +376,148 @@ fn the_thread_count_changes_no_byte_of_a_split() {
         }
     }
 }
+
+/// Rewrites a manifest's body and recomputes its checksum line, as an insider would.
+fn reseal(path: &std::path::Path, edit: impl Fn(&str) -> String) {
+    let text = std::fs::read_to_string(path).unwrap();
+    let body_end = text.trim_end().rfind('\n').unwrap() + 1;
+    let body = edit(&text[..body_end]);
+    let sum = blake3::hash(body.as_bytes()).to_hex();
+    std::fs::write(path, format!("{body}checksum: {sum}\n")).unwrap();
+}
+
+/// Replaces the first `from` after `anchor`.
+fn after(text: &str, anchor: &str, from: &str, to: &str) -> String {
+    let a = text.find(anchor).unwrap_or_else(|| panic!("no `{anchor}`"));
+    let b = a + text[a..].find(from).unwrap_or_else(|| panic!("no `{from}` after `{anchor}`"));
+    format!("{}{to}{}", &text[..b], &text[b + from.len()..])
+}
+
+/// Manifests edited and re-sealed so that their checksum holds but their fields contradict each
+/// other or the files: plain verify catches each.
+#[test]
+fn resealed_manifests_that_do_not_add_up_are_caught() {
+    let t = Test::new();
+    t.demo();
+    t.ok(&["split", "water-quality.csv", "--out", "clean", "--label", "bloom_class", "--stratify", "bloom_class"]);
+    let m = crate::util::manifest(&t.path("clean"));
+    let source_rows = m["source"]["rows"].as_u64().unwrap();
+    let handoff_rows = m["handoff"]["rows"].as_u64().unwrap();
+    let high = m["partitions"][0]["strata"]["bloom_class=high"].as_u64().unwrap();
+    type Edit = Box<dyn Fn(&str) -> String>;
+    let cases: Vec<(&str, Edit, &str)> = vec![
+        (
+            "a train stratum count",
+            Box::new(move |b: &str| {
+                after(
+                    b,
+                    "- name: train",
+                    &format!("bloom_class=high: {high}"),
+                    &format!("bloom_class=high: {}", high + 1),
+                )
+            }),
+            "strata add up to",
+        ),
+        (
+            "the source row count",
+            Box::new(move |b: &str| {
+                after(b, "source:", &format!("rows: {source_rows}"), &format!("rows: {}", source_rows - 1))
+            }),
+            "the partitions hold",
+        ),
+        (
+            "the hand-off row count",
+            Box::new(move |b: &str| {
+                after(b, "handoff:", &format!("rows: {handoff_rows}"), &format!("rows: {}", handoff_rows + 1))
+            }),
+            "label-free test file has",
+        ),
+        (
+            "keyed without a fingerprint",
+            Box::new(|b: &str| {
+                b.replace("  keyed: false\nstrata:", "  keyed: true\nstrata:")
+                    .replace("seal:\n  partition: test\n  keyed: false", "seal:\n  partition: test\n  keyed: true")
+            }),
+            "names no key fingerprint",
+        ),
+    ];
+    for (what, edit, said) in cases {
+        let _ = std::fs::remove_dir_all(t.path("out"));
+        std::process::Command::new("cp").args(["-r", "clean", "out"]).current_dir(t.dir.path()).status().unwrap();
+        reseal(&t.path("out/manifest.yaml"), &edit);
+        let r = t.run(&["verify", "out"]);
+        assert_eq!(r.code, 1, "{what}: {}\n{}", r.stdout, r.stderr);
+        assert!(r.stdout.contains(said), "{what}: {}", r.stdout);
+    }
+}
+
+/// `check --allow-partial` on a file where no kind could be compared is not clean; a file with a
+/// header and no rows is an error unless `--allow-empty`.
+#[test]
+fn a_check_that_compared_nothing_is_never_clean() {
+    let t = Test::new();
+    t.demo();
+    t.ok(&["split", "water-quality.csv", "--out", "out", "--label", "bloom_class"]);
+    // Five test rows under other column names: no kind can be compared.
+    let rows = records(&t.path("out/test.csv"));
+    let mut text = String::from("a,b,c\n");
+    for r in rows.iter().take(5) {
+        text.push_str(&format!("{},{},{}\n", r[0], r[1], r[2]));
+    }
+    t.write("renamed.csv", text);
+    let r = t.run(&["check", "renamed.csv", "--against", "out", "--allow-partial", "--json"]);
+    assert_eq!(r.code, 1, "{}\n{}", r.stdout, r.stderr);
+    assert_eq!(r.json()["clean"], false);
+    let r = t.run(&["check", "renamed.csv", "--against", "out", "--allow-partial"]);
+    assert!(r.stdout.contains("no kind could be compared"), "{}", r.stdout);
+    // A header and no rows.
+    let header = std::fs::read_to_string(t.path("water-quality.csv")).unwrap().lines().next().unwrap().to_string();
+    t.write("empty.csv", format!("{header}\n"));
+    t.run(&["check", "empty.csv", "--against", "out"]).fails_with(&["empty.csv", "no data rows", "--allow-empty"]);
+    t.ok(&["check", "empty.csv", "--against", "out", "--allow-empty"]);
+}
+
+/// Files of a sealed folder symlinked elsewhere are refused by verify, check and score; a planted
+/// `scores` link is never written through.
+#[test]
+fn symlinked_files_of_a_sealed_folder_are_refused() {
+    let t = Test::new();
+    let files = folder_with_predictions(&t);
+    std::process::Command::new("cp").args(["-r", "out", "clean"]).current_dir(t.dir.path()).status().unwrap();
+    let restore = || {
+        let _ = std::fs::remove_dir_all(t.path("out"));
+        std::process::Command::new("cp").args(["-r", "clean", "out"]).current_dir(t.dir.path()).status().unwrap();
+    };
+    for name in ["test.csv", "seal.rows.bin", "seal.features.bin"] {
+        restore();
+        // The same bytes, moved outside and linked back: hashes match, so only the link is wrong.
+        std::fs::rename(t.path(&format!("out/{name}")), t.path(name)).unwrap();
+        std::os::unix::fs::symlink(t.path(name), t.path(&format!("out/{name}"))).unwrap();
+        let r = t.run(&["verify", "out"]);
+        assert_eq!(r.code, 1, "{name}: {}", r.stdout);
+        assert!(r.stdout.contains("symbolic link"), "{name}: {}", r.stdout);
+        if name.starts_with("seal.") {
+            t.run(&["check", "water-quality.csv", "--against", "out"]).fails_with(&["symbolic link"]);
+        }
+        t.run(&["score", &files[0], "--against", "out"]).fails_with(&["does not verify"]);
+        std::fs::remove_file(t.path(name)).unwrap();
+    }
+    // The manifest itself.
+    restore();
+    std::fs::rename(t.path("out/manifest.yaml"), t.path("manifest.yaml")).unwrap();
+    std::os::unix::fs::symlink(t.path("manifest.yaml"), t.path("out/manifest.yaml")).unwrap();
+    t.run(&["verify", "out"]).fails_with(&["symbolic link"]);
+    std::fs::remove_file(t.path("manifest.yaml")).unwrap();
+    // A planted `scores` link: nothing is written outside.
+    restore();
+    std::fs::create_dir(t.path("elsewhere")).unwrap();
+    std::os::unix::fs::symlink(t.path("elsewhere"), t.path("out/scores")).unwrap();
+    t.run(&["score", &files[0], "--against", "out"]).fails_with(&["scores", "symbolic link"]);
+    assert_eq!(std::fs::read_dir(t.path("elsewhere")).unwrap().count(), 0);
+    // A hard link shared with a file outside.
+    restore();
+    std::fs::hard_link(t.path("out/seal.loose.bin"), t.path("outside.bin")).unwrap();
+    let r = t.run(&["verify", "out"]);
+    assert_eq!(r.code, 1, "{}", r.stdout);
+    assert!(r.stdout.contains("hard links"), "{}", r.stdout);
+}
