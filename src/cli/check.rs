@@ -140,7 +140,7 @@ fn report_text(r: &FileReport, allow_partial: bool) -> String {
 
 pub fn run(args: Args) -> anyhow::Result<Outcome> {
     let pin = args.expect_manifest.as_deref().map(manifest::parse_pin).transpose()?;
-    let key = args.digest_key.as_deref().map(crate::digest::DigestKey::read).transpose()?;
+    let key = args.digest_key.as_deref().map(crate::cli::read_key).transpose()?;
     let seal = Seal::open(&args.against, pin.as_deref(), key.as_ref())?;
     let opts = CheckOptions { max_examples: args.max_examples, format: args.format, allow_empty: args.allow_empty };
     let mut reports = Vec::new();

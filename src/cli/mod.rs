@@ -25,7 +25,7 @@ pub struct Cli {
 #[derive(Debug, Subcommand)]
 enum Command {
     /// Split a table into partitions, digest every row and seal the test partition.
-    Split(split::Args),
+    Split(Box<split::Args>),
     /// Check that a sealed folder still matches its manifest (exit 1 if not).
     Verify(verify::Args),
     /// Show a readable summary of a manifest: sizes, shares and strata.
@@ -61,7 +61,7 @@ pub fn main() -> ExitCode {
         }
     };
     let result = match cli.command {
-        Command::Split(args) => split::run(args),
+        Command::Split(args) => split::run(*args),
         Command::Verify(args) => verify::run(args),
         Command::Show(args) => show::run(args),
         Command::Check(args) => check::run(args),
@@ -94,6 +94,25 @@ fn install_panic_hook() {
             default(info);
         }
     }));
+}
+
+/// Reads a `--digest-key` file, warning when other users can read it.
+fn read_key(path: &std::path::Path) -> crate::Result<crate::digest::DigestKey> {
+    let key = crate::digest::DigestKey::read(path)?;
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        if let Ok(meta) = std::fs::metadata(path) {
+            let mode = meta.permissions().mode() & 0o777;
+            if mode & 0o077 != 0 {
+                output::warn(&format!(
+                    "`{}` can be read by other users (mode {mode:o}); a digest key should be private: chmod 600 it",
+                    path.display()
+                ));
+            }
+        }
+    }
+    Ok(key)
 }
 
 /// Parses `--format` and `--output-format` values.

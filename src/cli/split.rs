@@ -70,9 +70,24 @@ pub struct Args {
     /// With --force, move the folder's ledger and stored scorings to OUT.ledger-N beside it instead of refusing.
     #[arg(long, requires = "force")]
     discard_ledger: bool,
+    /// Refuse the input unless it has exactly N data rows (catches a truncated extract).
+    #[arg(long, value_name = "N")]
+    expect_rows: Option<u64>,
+    /// Refuse the input unless its BLAKE3 is this one (64 hex digits).
+    #[arg(long, value_name = "HASH", value_parser = parse_digest)]
+    expect_input_digest: Option<String>,
     /// Print one JSON document instead of text.
     #[arg(long)]
     json: bool,
+}
+
+/// Parses a BLAKE3 hash given on the command line: 64 hexadecimal digits, any case.
+fn parse_digest(s: &str) -> Result<String, String> {
+    if s.len() == 64 && s.bytes().all(|b| b.is_ascii_hexdigit()) {
+        Ok(s.to_ascii_lowercase())
+    } else {
+        Err(format!("`{s}` is not a 64-digit hexadecimal BLAKE3 hash"))
+    }
 }
 
 fn parse_compression(s: &str) -> Result<(parquet::basic::Compression, String), crate::error::Error> {
@@ -91,6 +106,8 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         out: args.out.clone(),
         force: args.force,
         discard_ledger: args.discard_ledger,
+        expect_rows: args.expect_rows,
+        expect_input_digest: args.expect_input_digest,
         ratios,
         seed: args.seed,
         stratify: args.stratify,
@@ -103,7 +120,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         stable: args.stable,
         folds,
         fold_column: args.fold_column,
-        digest_key: args.digest_key.as_deref().map(crate::digest::DigestKey::read).transpose()?,
+        digest_key: args.digest_key.as_deref().map(crate::cli::read_key).transpose()?,
         created: creation_time()?,
     };
     // Library errors name the file, line and column themselves.

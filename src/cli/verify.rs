@@ -31,7 +31,7 @@ pub struct Args {
 
 pub fn run(args: Args) -> anyhow::Result<Outcome> {
     let pin = args.expect_manifest.as_deref().map(manifest::parse_pin).transpose()?;
-    let key = args.digest_key.as_deref().map(crate::digest::DigestKey::read).transpose()?;
+    let key = args.digest_key.as_deref().map(crate::cli::read_key).transpose()?;
     let depth = crate::seal::verify::Depth { shareable: args.shareable, deep: args.deep };
     let report = crate::seal::verify::verify(&args.path, pin.as_deref(), key.as_ref(), depth)?;
     let shown = output::sanitize(&args.path.display().to_string());

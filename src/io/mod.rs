@@ -236,6 +236,7 @@ impl Table {
             None => None,
         };
         let (path, format) = (self.path.as_path(), self.format);
+        let mut footer_rows = None;
         let inner = match format {
             Format::Csv => BatchSource::Csv(Box::new(csv::CsvReader::open(
                 path,
@@ -252,6 +253,7 @@ impl Table {
                     meta = kept;
                 }
                 let row_groups = meta.metadata().num_row_groups();
+                footer_rows = u64::try_from(meta.metadata().file_metadata().num_rows()).ok();
                 let workers = rayon::current_num_threads().min(row_groups);
                 if workers > 1 {
                     return Ok(BatchSource::ParquetParallel(parquet_par::Reader::start(
@@ -276,7 +278,7 @@ impl Table {
                 BatchSource::Json { reader, projection: indices }
             }
         };
-        Ok(Batches { path: self.path.clone(), format, inner, rows: 0 })
+        Ok(Batches { path: self.path.clone(), format, inner, rows: 0, footer_rows })
     }
 
     /// The kept CSV text as batches of the columns' inferred types, as
@@ -445,6 +447,9 @@ pub struct Batches {
     format: Format,
     inner: BatchSource,
     rows: u64,
+    /// The rows the file's footer promises (Parquet, without a projection
+    /// that changes them: row counts do not depend on the columns).
+    footer_rows: Option<u64>,
 }
 
 impl Batches {
@@ -471,6 +476,15 @@ impl Batches {
                 })
             }
         })?;
+        if next.is_none() {
+            if let Some(promised) = self.footer_rows.filter(|&n| n != self.rows) {
+                return Err(Error::decode(
+                    path,
+                    format,
+                    format!("its footer says {promised} rows, but its row groups hold {}", self.rows),
+                ));
+            }
+        }
         Ok(next.map(|(data, raw, lines)| {
             let first_row = self.rows + 1;
             self.rows += data.num_rows() as u64;

@@ -161,7 +161,13 @@ impl PartitionWriter {
             (Format::Arrow, _) => {
                 Inner::Ipc(arrow_ipc::writer::FileWriter::try_new(sink, schema).map_err(|e| enc(&e))?)
             }
-            (Format::Jsonl, _) => Inner::Json(arrow_json::LineDelimitedWriter::new(sink)),
+            // Nulls are written out, so that a key that is null in every row of a partition
+            // is still in its file (and the file reads back with the input's columns).
+            (Format::Jsonl, _) => Inner::Json(
+                arrow_json::WriterBuilder::new()
+                    .with_explicit_nulls(true)
+                    .build::<_, arrow_json::writer::LineDelimited>(sink),
+            ),
         };
         Ok(PartitionWriter { path: path.to_path_buf(), format, inner, pending: Vec::new(), pending_rows: 0 })
     }

@@ -57,6 +57,11 @@ pub struct SplitConfig {
     pub fold_column: String,
     /// Key for keyed digests.
     pub digest_key: Option<DigestKey>,
+    /// The input's data rows, when the caller knows them (a truncated
+    /// extract is refused).
+    pub expect_rows: Option<u64>,
+    /// The input file's BLAKE3 (64 hex digits), when the caller knows it.
+    pub expect_input_digest: Option<String>,
     /// The manifest's creation time, RFC 3339.
     pub created: String,
 }

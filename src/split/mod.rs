@@ -67,6 +67,15 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     output::check_output(cfg)?;
     let mut opened = config::open(cfg)?;
     let facts = pass_one::first_pass(cfg, &mut opened)?;
+    if let Some(expected) = cfg.expect_rows.filter(|&n| n != facts.rows) {
+        return Err(crate::Error::malformed(
+            &cfg.input,
+            format!(
+                "has {} data rows, not the {expected} of --expect-rows (a truncated or changed extract?)",
+                facts.rows
+            ),
+        ));
+    }
     // Pass two's reading starts now: its first batches are decoded while
     // the rows are assigned (on one core).
     let batches = opened.table.batches(None, opened.raw_csv())?.read_ahead();
@@ -74,6 +83,12 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     let staging = Staging::create(&cfg.out)?;
     let written = pass_two::write(cfg, &opened, &facts, &plan, batches, &staging.path)?;
     let source_summary = opened.source_hash.take().expect("started when opened").join()?;
+    if let Some(expected) = cfg.expect_input_digest.as_deref().filter(|&d| d != source_summary.blake3) {
+        return Err(crate::Error::malformed(
+            &cfg.input,
+            format!("hashes to {}, not the {expected} of --expect-input-digest", source_summary.blake3),
+        ));
+    }
     let record::Recorded { manifest, mut warnings, dropped_by_gap, dropped_by_group } =
         record::record(cfg, &opened, &facts, plan, written, source_summary);
     let text = manifest.to_text();

@@ -182,3 +182,32 @@ fn a_split_into_a_folder_another_split_is_writing_is_refused() {
     t.ok(&["split", "water-quality.csv", "--out", "out"]);
     assert!(!t.path(".out.cleave-lock").exists(), "the lock file goes when the split ends");
 }
+
+/// The malformed-Parquet corpus of the Apache parquet-testing repository (fixtures/parquet-bad):
+/// each file gives one error line and exit 2, or a split that verifies; never a panic.
+#[test]
+fn every_file_of_the_malformed_parquet_corpus_gives_one_error_or_a_verified_split() {
+    let t = crate::util::Test::new();
+    let dir = crate::util::fixture("parquet-bad");
+    let mut files: Vec<_> = std::fs::read_dir(&dir)
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .filter(|p| p.extension().is_some_and(|e| e == "parquet"))
+        .collect();
+    files.sort();
+    assert_eq!(files.len(), 8);
+    for (i, f) in files.iter().enumerate() {
+        let out = format!("out{i}");
+        let r = t.run(&["split", f.to_str().unwrap(), "--out", &out]);
+        match r.code {
+            0 => {
+                t.ok(&["verify", &out, "--deep"]);
+            }
+            2 => {
+                assert_eq!(r.stderr.lines().count(), 1, "{}: {}", f.display(), r.stderr);
+                assert!(!t.path(&out).exists());
+            }
+            c => panic!("{}: exit {c}\n{}", f.display(), r.stderr),
+        }
+    }
+}

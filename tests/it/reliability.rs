@@ -521,3 +521,70 @@ fn symlinked_files_of_a_sealed_folder_are_refused() {
     assert_eq!(r.code, 1, "{}", r.stdout);
     assert!(r.stdout.contains("hard links"), "{}", r.stdout);
 }
+
+/// A JSON Lines key present in one row only: the split writes it (as null elsewhere) in every
+/// partition, so that its own output verifies.
+#[test]
+fn a_json_lines_key_in_one_row_only_splits_into_files_that_verify() {
+    let t = Test::new();
+    let mut text = String::new();
+    for i in 0..60 {
+        if i == 17 {
+            text.push_str(&format!("{{\"station\":\"S{i}\",\"ph\":7.{i},\"note\":\"algae seen\"}}\n"));
+        } else {
+            text.push_str(&format!("{{\"station\":\"S{i}\",\"ph\":7.{i}}}\n"));
+        }
+    }
+    t.write("samples.jsonl", text);
+    t.ok(&["split", "samples.jsonl", "--out", "out"]);
+    t.ok(&["verify", "out", "--deep"]);
+    for p in ["train", "validation", "test"] {
+        let first = std::fs::read_to_string(t.path(&format!("out/{p}.jsonl"))).unwrap();
+        assert!(first.lines().all(|l| l.contains("\"note\"")), "{p}: {first}");
+    }
+}
+
+/// `--expect-rows` and `--expect-input-digest` refuse an extract that is not the one expected,
+/// before anything is written.
+#[test]
+fn an_unexpected_extract_is_refused() {
+    let t = Test::new();
+    t.demo();
+    let digest = blake3::hash(&std::fs::read(t.path("water-quality.csv")).unwrap()).to_hex().to_string();
+    t.ok(&["split", "water-quality.csv", "--out", "a", "--expect-rows", "3000", "--expect-input-digest", &digest]);
+    t.run(&["split", "water-quality.csv", "--out", "b", "--expect-rows", "3001"]).fails_with(&[
+        "water-quality.csv",
+        "3000 data rows",
+        "--expect-rows",
+    ]);
+    let other = "0".repeat(64);
+    t.run(&["split", "water-quality.csv", "--out", "c", "--expect-input-digest", &other]).fails_with(&[
+        "water-quality.csv",
+        &digest,
+        "--expect-input-digest",
+    ]);
+    let r = t.run(&["split", "water-quality.csv", "--out", "d", "--expect-input-digest", "abc"]);
+    assert_eq!(r.code, 2);
+    assert!(r.stderr.contains("`abc` is not a 64-digit hexadecimal BLAKE3 hash"), "{}", r.stderr);
+    for out in ["b", "c", "d"] {
+        assert!(!t.path(out).exists(), "{out}");
+    }
+    assert!(t.entries().iter().all(|n| !n.starts_with('.')), "{:?}", t.entries());
+}
+
+/// A digest key other users can read is used with a warning; SOURCE_DATE_EPOCH with spaces is
+/// refused.
+#[test]
+fn a_readable_key_is_warned_of_and_a_padded_epoch_refused() {
+    use std::os::unix::fs::PermissionsExt;
+    let t = Test::new();
+    t.demo();
+    t.ok(&["keygen", "key.hex"]);
+    let r = t.ok(&["split", "water-quality.csv", "--out", "a", "--digest-key", "key.hex"]);
+    assert!(!r.stderr.contains("other users"), "{}", r.stderr);
+    std::fs::set_permissions(t.path("key.hex"), std::fs::Permissions::from_mode(0o644)).unwrap();
+    let r = t.ok(&["verify", "a", "--digest-key", "key.hex"]);
+    assert!(r.stderr.contains("can be read by other users"), "{}", r.stderr);
+    let t = t.env("SOURCE_DATE_EPOCH", " 1700000000");
+    t.run(&["split", "water-quality.csv", "--out", "b"]).fails_with(&["SOURCE_DATE_EPOCH"]);
+}
