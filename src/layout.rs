@@ -20,7 +20,7 @@ const ROOMS: &[(&str, &[&str])] = &[
     ("rng", &[]),
     ("failpoint", &[]),
     ("interrupt", &["error"]),
-    ("io", &["error", "format", "value"]),
+    ("io", &["error", "format", "value", "failpoint"]),
     ("digest", &["error", "format", "value"]),
     ("seal", &["error", "format", "value", "rng", "io", "digest"]),
     ("split", &["error", "format", "value", "rng", "failpoint", "interrupt", "io", "digest", "seal"]),

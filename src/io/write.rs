@@ -296,6 +296,7 @@ pub fn write_streamed(path: &Path, fill: impl FnOnce(&mut dyn Write) -> std::io:
 
 /// Creates `path` (which must not exist) behind a hashing buffer.
 fn create_sink(path: &Path) -> Result<Sink> {
+    crate::failpoint::io_step().map_err(|e| Error::io(path, "cannot create", e))?;
     let file =
         File::options().write(true).create_new(true).open(path).map_err(|e| Error::io(path, "cannot create", e))?;
     Ok(BufWriter::with_capacity(1 << 20, Hashing { inner: file, hasher: blake3::Hasher::new(), bytes: 0 }))
@@ -306,7 +307,7 @@ fn create_sink(path: &Path) -> Result<Sink> {
 fn finish_sink(path: &Path, sink: Sink) -> Result<FileSummary> {
     let Hashing { inner: file, hasher, bytes } =
         sink.into_inner().map_err(|e| Error::io(path, "cannot write", e.into_error()))?;
-    file.sync_all().map_err(|e| Error::io(path, "cannot sync", e))?;
+    crate::failpoint::io_step().and_then(|()| file.sync_all()).map_err(|e| Error::io(path, "cannot sync", e))?;
     Ok(FileSummary { bytes, blake3: hasher.finalize().to_hex().to_string() })
 }
 

@@ -309,7 +309,9 @@ impl LedgerLock {
 /// Disk failures.
 pub fn append(dir: &Path, ledger: &Ledger, _lock: &LedgerLock, body: EntryBody, stored_bytes: &[u8]) -> Result<Entry> {
     let scores = dir.join(SCORES_DIR);
-    std::fs::create_dir_all(&scores).map_err(|e| Error::io(&scores, "cannot create", e))?;
+    crate::failpoint::io_step()
+        .and_then(|()| std::fs::create_dir_all(&scores))
+        .map_err(|e| Error::io(&scores, "cannot create", e))?;
     let stored_path: PathBuf = dir.join(&body.stored);
     let _ = std::fs::remove_file(&stored_path);
     let tmp = dir.join(format!("{TEMP_PREFIX}{}", std::process::id()));
@@ -329,13 +331,17 @@ pub fn append(dir: &Path, ledger: &Ledger, _lock: &LedgerLock, body: EntryBody, 
         let _ = std::fs::remove_file(&tmp);
         crate::io::write_small(&tmp, text.as_bytes())?;
         crate::failpoint::kill_at("score-after-copy");
-        std::fs::rename(&tmp, &path).map_err(|e| Error::io(&path, "cannot write the ledger", e))?;
+        crate::failpoint::io_step()
+            .and_then(|()| std::fs::rename(&tmp, &path))
+            .map_err(|e| Error::io(&path, "cannot write the ledger", e))?;
         crate::failpoint::kill_at("score-after-rename");
         Ok(entry)
     })();
     match written {
         Ok(entry) => {
-            std::fs::File::open(dir).and_then(|d| d.sync_all()).map_err(|e| Error::io(dir, "cannot sync", e))?;
+            // The entry is in place once renamed; syncing the folder makes the rename durable
+            // against a power loss, and its failure cannot undo the entry, so it is best effort.
+            let _ = std::fs::File::open(dir).and_then(|d| d.sync_all());
             Ok(entry)
         }
         Err(e) => {

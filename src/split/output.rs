@@ -27,7 +27,9 @@ impl Staging {
     /// Creates the staging folder of `out`.
     pub(super) fn create(out: &Path) -> Result<Staging> {
         let staging = Staging { path: sibling(out, "staging"), done: false };
-        std::fs::create_dir(&staging.path).map_err(|e| Error::io(&staging.path, "cannot create", e))?;
+        crate::failpoint::io_step()
+            .and_then(|()| std::fs::create_dir(&staging.path))
+            .map_err(|e| Error::io(&staging.path, "cannot create", e))?;
         Ok(staging)
     }
 }
@@ -175,7 +177,10 @@ pub(super) fn check_output(cfg: &SplitConfig) -> Result<()> {
 
 /// Syncs a folder, so that the names in it are on disk.
 pub(super) fn sync_dir(path: &Path) -> Result<()> {
-    std::fs::File::open(path).and_then(|f| f.sync_all()).map_err(|e| Error::io(path, "cannot sync", e))
+    crate::failpoint::io_step()
+        .and_then(|()| std::fs::File::open(path))
+        .and_then(|f| f.sync_all())
+        .map_err(|e| Error::io(path, "cannot sync", e))
 }
 
 /// The entries of `dir`'s ledger when it has a ledger or stored scorings.
@@ -203,11 +208,22 @@ fn archive_ledger(out: &Path) -> Result<String> {
             Err(e) => return Err(Error::io(&candidate, "cannot create", e)),
         }
     };
+    // All of it moves or none: on a failure what moved goes back and the archive is removed.
+    let mut moved = Vec::new();
     for file in [LEDGER, SCORES, LEDGER_LOCK] {
         let from = out.join(file);
-        if std::fs::symlink_metadata(&from).is_ok() {
-            std::fs::rename(&from, archive.join(file)).map_err(|e| Error::io(&from, "cannot archive", e))?;
+        if std::fs::symlink_metadata(&from).is_err() {
+            continue;
         }
+        let to = archive.join(file);
+        if let Err(e) = crate::failpoint::io_step().and_then(|()| std::fs::rename(&from, &to)) {
+            for (from, to) in moved.into_iter().rev() {
+                let _ = std::fs::rename(to, from);
+            }
+            let _ = std::fs::remove_dir(&archive);
+            return Err(Error::io(&from, "cannot archive", e));
+        }
+        moved.push((from, to));
     }
     sync_dir(&archive)?;
     sync_dir(out)?;
@@ -256,6 +272,9 @@ pub(super) fn commit(mut staging: Staging, out: &Path, force: bool, discard_ledg
         said.push(archive_ledger(out)?);
         crate::failpoint::kill_at("split-after-archive");
     }
+    if replaced && !crate::failpoint::armed("split-no-exchange") {
+        crate::failpoint::io_step().map_err(|e| Error::io(out, "cannot swap the new folder in", e))?;
+    }
     if replaced && !crate::failpoint::armed("split-no-exchange") && exchange(&staging.path, out).is_ok() {
         // The staging path now holds the old folder.
         staging.done = true;
@@ -268,10 +287,12 @@ pub(super) fn commit(mut staging: Staging, out: &Path, force: bool, discard_ledg
     }
     let old = sibling(out, "old");
     if replaced {
-        std::fs::rename(out, &old).map_err(|e| Error::io(out, "cannot move the old folder aside", e))?;
+        crate::failpoint::io_step()
+            .and_then(|()| std::fs::rename(out, &old))
+            .map_err(|e| Error::io(out, "cannot move the old folder aside", e))?;
         crate::failpoint::kill_at("split-after-park");
     }
-    if let Err(e) = std::fs::rename(&staging.path, out) {
+    if let Err(e) = crate::failpoint::io_step().and_then(|()| std::fs::rename(&staging.path, out)) {
         if replaced {
             let _ = std::fs::rename(&old, out);
         }

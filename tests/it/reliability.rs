@@ -588,3 +588,90 @@ fn a_readable_key_is_warned_of_and_a_padded_epoch_refused() {
     let t = t.env("SOURCE_DATE_EPOCH", " 1700000000");
     t.run(&["split", "water-quality.csv", "--out", "b"]).fails_with(&["SOURCE_DATE_EPOCH"]);
 }
+
+/// The fault loop: the K-th file-system step of `split --force` (and of `score`) fails, for K = 1,
+/// 2, ... until a run goes through. Every failing run exits 2 with one line and leaves the old
+/// folder (and ledger) verifying, with nothing stale beside it; the run that goes through is
+/// byte-identical to a run without faults.
+#[test]
+fn every_failing_file_system_step_leaves_the_old_state() {
+    let base = Test::new();
+    let files = folder_with_predictions(&base);
+    base.ok(&["score", &files[0], "--against", "out"]);
+    let old_manifest = std::fs::read(base.path("out/manifest.yaml")).unwrap();
+    let old_ledger = std::fs::read(base.path("out/ledger.jsonl")).unwrap();
+    // The reference: the same split into a fresh folder, no faults.
+    let split = |out: &str| {
+        vec![
+            "split".to_string(),
+            "water-quality.csv".into(),
+            "--out".into(),
+            out.into(),
+            "--force".into(),
+            "--label".into(),
+            "bloom_class".into(),
+            "--seed".into(),
+            "4".into(),
+        ]
+    };
+    let reference = split("reference");
+    base.ok(&reference.iter().map(String::as_str).collect::<Vec<_>>());
+    let args = split("out");
+    let args: Vec<&str> = args.iter().map(String::as_str).collect();
+    let mut t = base;
+    let discard: Vec<&str> = args.iter().copied().chain(["--discard-ledger"]).collect();
+    let mut k = 1;
+    loop {
+        t = t.env("CLEAVE_FAILPOINT", &format!("io-fault-{k}"));
+        let r = t.run(&discard);
+        if r.code == 0 {
+            break;
+        }
+        r.fails_with(&["injected fault"]);
+        t = t.env("CLEAVE_FAILPOINT", "");
+        let v = t.run(&["verify", "out"]);
+        assert_eq!(v.code, 0, "step {k}: {}", v.stdout);
+        let ledger_kept = std::fs::read(t.path("out/ledger.jsonl")).ok() == Some(old_ledger.clone());
+        let ledger_archived = std::fs::read(t.path("out.ledger-1/ledger.jsonl")).ok() == Some(old_ledger.clone());
+        assert!(ledger_kept || ledger_archived, "step {k}: the ledger was lost: {}\n{:?}", r.stderr, t.entries());
+        if ledger_kept {
+            assert_eq!(std::fs::read(t.path("out/manifest.yaml")).unwrap(), old_manifest, "step {k}");
+        }
+        assert!(leftovers(&t).is_empty(), "step {k}: {:?}", leftovers(&t));
+        k += 1;
+        assert!(k < 200, "the split never went through");
+    }
+    assert!(k > 5, "only {k} steps: the loop did not reach the writes");
+    let t = t.env("CLEAVE_FAILPOINT", "");
+    for (name, bytes) in tree(&t.path("reference")) {
+        assert_eq!(std::fs::read(t.path(&format!("out/{name}"))).unwrap(), bytes, "{name}");
+    }
+    // Score: every failing step leaves the ledger as it was, and no stored file without its entry.
+    let ids: Vec<String> = records(&t.path("out/test.features.csv")).into_iter().map(|r| r[0].clone()).collect();
+    for (file, class) in files.iter().zip(["none", "low"]) {
+        let mut text = String::from("row_id,prediction\n");
+        for id in &ids {
+            text.push_str(&format!("{id},{class}\n"));
+        }
+        t.write(file, text);
+    }
+    t.ok(&["score", &files[0], "--against", "out"]);
+    let ledger = std::fs::read(t.path("out/ledger.jsonl")).unwrap();
+    let mut t = t;
+    let mut k = 1;
+    loop {
+        t = t.env("CLEAVE_FAILPOINT", &format!("io-fault-{k}"));
+        let r = t.run(&["score", &files[1], "--against", "out", "--name", "faulted"]);
+        if r.code == 0 {
+            break;
+        }
+        r.fails_with(&["injected fault"]);
+        assert_eq!(std::fs::read(t.path("out/ledger.jsonl")).unwrap(), ledger, "step {k}");
+        assert_eq!(std::fs::read_dir(t.path("out/scores")).unwrap().count(), 1, "step {k}");
+        k += 1;
+        assert!(k < 50, "the scoring never went through");
+    }
+    let t = t.env("CLEAVE_FAILPOINT", "");
+    t.ok(&["ledger", "out"]);
+    assert_eq!(ledger_names(&t).len(), 2);
+}
