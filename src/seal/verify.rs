@@ -26,6 +26,7 @@ use crate::seal;
 use crate::seal::kind_digest;
 use crate::seal::manifest::Partition;
 use crate::seal::manifest::{self, SealKind};
+use crate::seal::time::format_time;
 
 /// One thing that differs from the seal.
 #[derive(Debug, Clone, PartialEq, Eq, serde::Serialize)]
@@ -148,7 +149,19 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
         // wrong one costs only regrowing them.
         let rows_hint = part.rows.min(1 << 24) as usize;
         let file = loaded.file(&part.file);
-        digest_partition(&file, part.format, &hints, &spec, group_spec.as_ref(), fold_column(part), is_test, rows_hint)
+        // In --deep, the order column too (empty name: none), to recount times.
+        let deep_order = deep.then(|| m.order.as_ref().map_or("", |o| o.column.as_str()));
+        digest_partition(
+            &file,
+            part.format,
+            &hints,
+            &spec,
+            group_spec.as_ref(),
+            fold_column(part),
+            is_test,
+            rows_hint,
+            deep_order,
+        )
     };
     // Every listed file must be a regular file inside the folder.
     let listed = parts
@@ -201,8 +214,25 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
         };
         partitions_redigested += 1;
         match content {
-            Ok(Content { mut rows, all, groups, folds }) => {
+            Ok(Content { mut rows, all, groups, folds, time }) => {
                 rows_checked += rows.len() as u64;
+                if deep {
+                    if let Some(sealed) = part.groups.filter(|&g| g != groups.len() as u64) {
+                        problem(&part.file, format!("holds {} groups, the seal says {sealed}", groups.len()));
+                    }
+                    if let (Some(range), Some(order), Some((a, z))) = (&part.time, &m.order, time) {
+                        let (first, last) = (format_time(a, order.kind), format_time(z, order.kind));
+                        if first != range.first || last != range.last {
+                            problem(
+                                &part.file,
+                                format!(
+                                    "its times run from {first} to {last}, the seal says {} to {}",
+                                    range.first, range.last
+                                ),
+                            );
+                        }
+                    }
+                }
                 if fold_column(part).is_some() && !part.folds.is_empty() && folds != part.folds {
                     problem(
                         &part.file,
@@ -407,6 +437,8 @@ struct Content {
     groups: Vec<crate::seal::SealRecord>,
     /// Rows per fold, when the partition has a fold column.
     folds: BTreeMap<u32, u64>,
+    /// The first and last time of the order column, when one was read.
+    time: Option<(i64, i64)>,
 }
 
 /// The test partition's digests with their rows, and its group records.
@@ -422,6 +454,7 @@ fn digest_partition(
     fold_column: Option<&str>,
     is_test: bool,
     rows_hint: usize,
+    deep: Option<&str>,
 ) -> Result<Content> {
     let table = Table::open(path, format, hints)?;
     spec.bind(path, &table.schema())?;
@@ -431,14 +464,24 @@ fn digest_partition(
         table.column_index(f)?;
         columns.push(f.to_string());
     }
-    if let (Some(g), true) = (group, is_test) {
+    // In --deep, every partition's groups and times are recounted too.
+    let group = group.filter(|_| is_test || deep.is_some());
+    if let Some(g) = group {
         columns.extend(g.columns().iter().cloned());
     }
+    let order = deep.filter(|o| !o.is_empty());
+    if let Some(o) = order {
+        table.column_index(o)?;
+        columns.push(o.to_string());
+    }
+    columns.sort();
+    columns.dedup();
     let mut content = Content {
         rows: Vec::with_capacity(rows_hint),
         all: Vec::with_capacity(if is_test { rows_hint } else { 0 }),
         groups: Vec::new(),
         folds: BTreeMap::new(),
+        time: None,
     };
     let mut batches = table.batches(Some(&columns), false)?.read_ahead();
     // Several batches digested side by side, merged in file order.
@@ -450,7 +493,7 @@ fn digest_partition(
         pending.extend(next);
         if pending.len() == BATCHES_IN_FLIGHT || (done && !pending.is_empty()) {
             let digested: Vec<Result<Content>> =
-                pending.par_iter().map(|b| digest_batch(path, spec, group, fold_column, is_test, b)).collect();
+                pending.par_iter().map(|b| digest_batch(path, spec, group, fold_column, is_test, order, b)).collect();
             pending.clear();
             for part in digested {
                 let part = part?;
@@ -461,6 +504,10 @@ fn digest_partition(
                 }
                 for (fold, n) in part.folds {
                     *content.folds.entry(fold).or_insert(0) += n;
+                }
+                if let Some((a, z)) = part.time {
+                    let t = content.time.get_or_insert((a, z));
+                    *t = (t.0.min(a), t.1.max(z));
                 }
             }
         }
@@ -485,12 +532,27 @@ fn digest_batch(
     group: Option<&GroupSpec>,
     fold_column: Option<&str>,
     is_test: bool,
+    order: Option<&str>,
     batch: &io::Batch,
 ) -> Result<Content> {
-    let mut content = Content { rows: Vec::new(), all: Vec::new(), groups: Vec::new(), folds: BTreeMap::new() };
+    let mut content =
+        Content { rows: Vec::new(), all: Vec::new(), groups: Vec::new(), folds: BTreeMap::new(), time: None };
     let bound = spec.bind(path, &batch.data.schema())?;
+    if let Some(o) = order {
+        let mut times = Vec::with_capacity(batch.data.num_rows());
+        crate::seal::time::time_values(path, batch, o, &mut times)?;
+        content.time = times.iter().fold(None, |acc: Option<(i64, i64)>, &t| match acc {
+            None => Some((t, t)),
+            Some((a, z)) => Some((a.min(t), z.max(t))),
+        });
+    }
     if !is_test {
         bound.row_digests(&batch.data, &mut content.rows)?;
+        if let Some(g) = group {
+            let mut group_digests = Vec::with_capacity(batch.data.num_rows());
+            g.digests(path, &batch.data, &mut group_digests)?;
+            content.groups.extend(group_digests.into_iter().zip(batch.first_row..));
+        }
     } else {
         let idx: Vec<usize> = (0..batch.data.num_rows()).collect();
         let mut digests = Vec::with_capacity(idx.len());

@@ -675,3 +675,27 @@ fn every_failing_file_system_step_leaves_the_old_state() {
     t.ok(&["ledger", "out"]);
     assert_eq!(ledger_names(&t).len(), 2);
 }
+
+/// A partition's group count or time range edited and re-sealed: consistent on its face, so only
+/// `verify --deep`, which recounts them from the files, catches it.
+#[test]
+fn resealed_group_counts_and_time_ranges_are_caught_by_deep_verify() {
+    let t = Test::new();
+    t.demo();
+    t.ok(&["split", "water-quality.csv", "--out", "g", "--group", "station"]);
+    t.ok(&["split", "water-quality.csv", "--out", "h", "--order-by", "sample_time"]);
+    let groups = crate::util::manifest(&t.path("g"))["partitions"][0]["groups"].as_u64().unwrap();
+    reseal(&t.path("g/manifest.yaml"), |b| {
+        after(b, "- name: train", &format!("groups: {groups}"), &format!("groups: {}", groups - 1))
+    });
+    t.ok(&["verify", "g"]);
+    let r = t.run(&["verify", "g", "--deep"]);
+    assert_eq!(r.code, 1, "{}", r.stdout);
+    assert!(r.stdout.contains(&format!("holds {groups} groups, the seal says {}", groups - 1)), "{}", r.stdout);
+    let first = crate::util::manifest(&t.path("h"))["partitions"][0]["time"]["first"].as_str().unwrap().to_string();
+    reseal(&t.path("h/manifest.yaml"), |b| after(b, "- name: train", &first, "2021-12-31T23:59:59Z"));
+    t.ok(&["verify", "h"]);
+    let r = t.run(&["verify", "h", "--deep"]);
+    assert_eq!(r.code, 1, "{}", r.stdout);
+    assert!(r.stdout.contains(&format!("its times run from {first}")), "{}", r.stdout);
+}
