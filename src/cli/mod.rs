@@ -73,14 +73,13 @@ pub fn main() -> ExitCode {
         Ok(Outcome::Ok) => ExitCode::SUCCESS,
         Ok(Outcome::Finding) => ExitCode::from(1),
         Err(e) if output::is_broken_pipe(&e) => ExitCode::SUCCESS,
-        Err(e) if matches!(e.downcast_ref::<crate::Error>(), Some(crate::Error::Interrupted { .. })) => {
-            output::error(&e);
-            let Some(crate::Error::Interrupted { signal }) = e.downcast_ref::<crate::Error>() else { unreachable!() };
-            ExitCode::from(128u8.saturating_add(*signal as u8))
-        }
         Err(e) => {
             output::error(&e);
-            ExitCode::from(2)
+            match e.downcast_ref::<crate::Error>() {
+                // The shell's convention for a process stopped by a signal.
+                Some(crate::Error::Interrupted { signal }) => ExitCode::from(128u8.saturating_add(*signal as u8)),
+                _ => ExitCode::from(2),
+            }
         }
     }
 }

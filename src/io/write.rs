@@ -119,7 +119,7 @@ pub struct PartitionWriter {
     pub(super) format: Format,
     inner: Inner,
     /// Rows waiting for a full block (Parquet and Arrow IPC), in order.
-    pending: Vec<RecordBatch>,
+    pending: std::collections::VecDeque<RecordBatch>,
     pending_rows: usize,
 }
 
@@ -169,7 +169,7 @@ impl PartitionWriter {
                     .build::<_, arrow_json::writer::LineDelimited>(sink),
             ),
         };
-        Ok(PartitionWriter { path: path.to_path_buf(), format, inner, pending: Vec::new(), pending_rows: 0 })
+        Ok(PartitionWriter { path: path.to_path_buf(), format, inner, pending: Default::default(), pending_rows: 0 })
     }
 
     fn enc(&self, e: impl Into<crate::error::Cause>) -> Error {
@@ -186,7 +186,7 @@ impl PartitionWriter {
         }
         if matches!(self.inner, Inner::Parquet(_) | Inner::Ipc(_)) {
             self.pending_rows += batch.num_rows();
-            self.pending.push(batch.clone());
+            self.pending.push_back(batch.clone());
             while self.pending_rows >= WRITE_ROWS {
                 let block = self.take_block(WRITE_ROWS)?;
                 self.encode(&block)?;
@@ -205,7 +205,7 @@ impl PartitionWriter {
             let first = &self.pending[0];
             let rows = first.num_rows();
             if rows <= need {
-                parts.push(self.pending.remove(0));
+                parts.extend(self.pending.pop_front());
                 need -= rows;
             } else {
                 parts.push(first.slice(0, need));

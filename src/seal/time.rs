@@ -16,6 +16,7 @@ pub enum TimeKind {
 /// Microseconds in a day: a date is its midnight, in these units.
 pub const MICROS_PER_DAY: i64 = 86_400_000_000;
 use crate::error::Error;
+use crate::format::ColumnType;
 use crate::error::Result;
 use crate::io::Batch;
 use crate::value;
@@ -68,14 +69,7 @@ pub fn time_values(path: &Path, batch: &Batch, column: &str, out: &mut Vec<i64>)
             }
             TimeKind::Date
         }
-        DataType::Int8
-        | DataType::Int16
-        | DataType::Int32
-        | DataType::Int64
-        | DataType::UInt8
-        | DataType::UInt16
-        | DataType::UInt32
-        | DataType::UInt64 => {
+        integer if ColumnType::of(integer) == Some(ColumnType::Integer) => {
             let ints = arrow_cast::cast(array, &DataType::Int64).map_err(|_| {
                 Error::column(path, column, "holds integers beyond 64 bits, which cannot be ordered as times")
             })?;

@@ -149,19 +149,11 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
         // wrong one costs only regrowing them.
         let rows_hint = part.rows.min(1 << 24) as usize;
         let file = loaded.file(&part.file);
-        // In --deep, the order column too (empty name: none), to recount times.
-        let deep_order = deep.then(|| m.order.as_ref().map_or("", |o| o.column.as_str()));
-        digest_partition(
-            &file,
-            part.format,
-            &hints,
-            &spec,
-            group_spec.as_ref(),
-            fold_column(part),
-            is_test,
-            rows_hint,
-            deep_order,
-        )
+        // The test partition's groups feed the seal check; in --deep every partition's groups
+        // and times are recounted too.
+        let group = group_spec.as_ref().filter(|_| is_test || deep);
+        let order = m.order.as_ref().filter(|_| deep).map(|o| o.column.as_str());
+        digest_partition(&file, part.format, &hints, &spec, group, fold_column(part), is_test, rows_hint, order)
     };
     // Every listed file must be a regular file inside the folder.
     let listed = parts
@@ -454,7 +446,7 @@ fn digest_partition(
     fold_column: Option<&str>,
     is_test: bool,
     rows_hint: usize,
-    deep: Option<&str>,
+    order: Option<&str>,
 ) -> Result<Content> {
     let table = Table::open(path, format, hints)?;
     spec.bind(path, &table.schema())?;
@@ -464,12 +456,9 @@ fn digest_partition(
         table.column_index(f)?;
         columns.push(f.to_string());
     }
-    // In --deep, every partition's groups and times are recounted too.
-    let group = group.filter(|_| is_test || deep.is_some());
     if let Some(g) = group {
         columns.extend(g.columns().iter().cloned());
     }
-    let order = deep.filter(|o| !o.is_empty());
     if let Some(o) = order {
         table.column_index(o)?;
         columns.push(o.to_string());

@@ -195,10 +195,9 @@ fn ledger_entries(dir: &Path) -> Option<usize> {
 
 /// Moves the ledger, the stored scorings and the ledger's lock of `out` into
 /// a new folder `NAME.ledger-K` beside it; returns a line saying where.
-fn archive_ledger(out: &Path) -> Result<String> {
+fn archive_ledger(out: &Path, entries: usize) -> Result<String> {
     let name = out.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| "out".into());
     let parent = out.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
-    let entries = ledger_entries(out).unwrap_or(0);
     let mut k = 1;
     let archive = loop {
         let candidate = parent.join(format!("{name}.ledger-{k}"));
@@ -268,14 +267,15 @@ fn exchange(_: &Path, _: &Path) -> std::io::Result<()> {
 pub(super) fn commit(mut staging: Staging, out: &Path, force: bool, discard_ledger: bool) -> Result<Vec<String>> {
     let mut said = Vec::new();
     let replaced = force && out.exists();
-    if replaced && discard_ledger && ledger_entries(out).is_some() {
-        said.push(archive_ledger(out)?);
+    if let Some(entries) = (replaced && discard_ledger).then(|| ledger_entries(out)).flatten() {
+        said.push(archive_ledger(out, entries)?);
         crate::failpoint::kill_at("split-after-archive");
     }
-    if replaced && !crate::failpoint::armed("split-no-exchange") {
+    let swap = replaced && !crate::failpoint::armed("split-no-exchange");
+    if swap {
         crate::failpoint::io_step().map_err(|e| Error::io(out, "cannot swap the new folder in", e))?;
     }
-    if replaced && !crate::failpoint::armed("split-no-exchange") && exchange(&staging.path, out).is_ok() {
+    if swap && exchange(&staging.path, out).is_ok() {
         // The staging path now holds the old folder.
         staging.done = true;
         crate::failpoint::kill_at("split-after-exchange");

@@ -16,7 +16,7 @@ use cleave::score::{self, ScoreOptions, Scoring};
 use cleave::seal::manifest;
 use cleave::seal::verify::{verify, Depth};
 
-use crate::util::{records, Test};
+use crate::util::{constant_predictions, test_ids, tree, Test};
 
 /// Mutants per table through the library.
 const MUTANTS: u64 = 240;
@@ -153,38 +153,17 @@ fn sealed_folder(t: &Test) -> PathBuf {
         "--seed",
         "3",
     ]);
-    let ids: Vec<String> = records(&t.path("out/test.features.csv")).into_iter().map(|r| r[0].clone()).collect();
+    let ids = test_ids(&t.path("out"));
     for (name, class) in [("a.csv", "none"), ("b.csv", "low")] {
-        let mut text = String::from("row_id,prediction\n");
-        for id in &ids {
-            text.push_str(&format!("{id},{class}\n"));
-        }
-        t.write(name, text);
+        t.write(name, constant_predictions(&ids, class));
         t.ok(&["score", name, "--against", "out"]);
     }
     t.path("out")
 }
 
-/// Every file under `dir`, by relative name.
-fn snapshot(dir: &Path) -> BTreeMap<PathBuf, Vec<u8>> {
-    let mut out = BTreeMap::new();
-    let mut stack = vec![dir.to_path_buf()];
-    while let Some(d) = stack.pop() {
-        for e in std::fs::read_dir(&d).unwrap() {
-            let p = e.unwrap().path();
-            if p.is_dir() {
-                stack.push(p);
-            } else {
-                out.insert(p.strip_prefix(dir).unwrap().to_path_buf(), std::fs::read(&p).unwrap());
-            }
-        }
-    }
-    out
-}
-
 /// Puts the folder back as it was: the snapshot's bytes, nothing else.
-fn restore(dir: &Path, snap: &BTreeMap<PathBuf, Vec<u8>>) {
-    for name in snapshot(dir).keys() {
+fn restore(dir: &Path, snap: &BTreeMap<String, Vec<u8>>) {
+    for name in tree(dir).keys() {
         if !snap.contains_key(name) {
             std::fs::remove_file(dir.join(name)).unwrap();
         }
@@ -226,20 +205,17 @@ fn read_folder(t: &Test, out: &Path) {
 fn every_sealed_folder_file_answers_mutated_bytes_without_panicking() {
     let t = Test::new();
     let out = sealed_folder(&t);
-    let snap = snapshot(&out);
-    let targets: Vec<&PathBuf> = snap
+    let snap = tree(&out);
+    let targets: Vec<&String> = snap
         .keys()
-        .filter(|n| {
-            let s = n.to_string_lossy();
-            s == "manifest.yaml" || s.starts_with("seal.") || s == "ledger.jsonl" || s.starts_with("scores/")
-        })
+        .filter(|s| *s == "manifest.yaml" || s.starts_with("seal.") || *s == "ledger.jsonl" || s.starts_with("scores/"))
         .collect();
     assert_eq!(targets.len(), 8, "{targets:?}");
     for (k, name) in targets.iter().enumerate() {
         let mut m = Mutator::new(1000 + k as u64);
         for i in 0..FOLDER_MUTANTS {
             std::fs::write(out.join(name), m.mutate(&snap[*name])).unwrap();
-            no_panic(&name.display().to_string(), i, || read_folder(&t, &out));
+            no_panic(name, i, || read_folder(&t, &out));
             restore(&out, &snap);
         }
     }
@@ -249,7 +225,7 @@ fn every_sealed_folder_file_answers_mutated_bytes_without_panicking() {
 fn the_binary_answers_mutated_folders_with_an_exit_code_and_one_line() {
     let t = Test::new();
     let out = sealed_folder(&t);
-    let snap = snapshot(&out);
+    let snap = tree(&out);
     let commands: [&[&str]; 5] = [
         &["verify", "out", "--deep"],
         &["show", "out"],
@@ -261,7 +237,7 @@ fn the_binary_answers_mutated_folders_with_an_exit_code_and_one_line() {
         .iter()
         .enumerate()
     {
-        let original = &snap[Path::new(name)];
+        let original = &snap[*name];
         let mut m = Mutator::new(5000 + k as u64);
         for i in 0..BINARY_MUTANTS {
             std::fs::write(out.join(name), m.mutate(original)).unwrap();

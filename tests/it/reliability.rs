@@ -3,21 +3,17 @@
 use std::collections::BTreeMap;
 use std::process::Stdio;
 
-use crate::util::{records, Test};
+use crate::util::{constant_predictions, records, reseal, test_ids, tree, Test};
 
 /// A classification split of the demo data and a predictions file per class.
 fn folder_with_predictions(t: &Test) -> Vec<String> {
     t.demo();
     t.ok(&["split", "water-quality.csv", "--out", "out", "--label", "bloom_class", "--stratify", "bloom_class"]);
-    let ids: Vec<String> = records(&t.path("out/test.features.csv")).into_iter().map(|r| r[0].clone()).collect();
+    let ids = test_ids(&t.path("out"));
     let mut names = Vec::new();
     for class in ["none", "low", "moderate", "high"] {
-        let mut text = String::from("row_id,prediction\n");
-        for id in &ids {
-            text.push_str(&format!("{id},{class}\n"));
-        }
         let name = format!("{class}.csv");
-        t.write(&name, text);
+        t.write(&name, constant_predictions(&ids, class));
         names.push(name);
     }
     names
@@ -126,24 +122,6 @@ fn leftovers_of_a_dead_scoring_are_cleaned_by_the_next() {
     let stored = std::fs::read(t.path("out/scores/000002.bin")).unwrap();
     assert_ne!(stored, b"predictions of a scoring that never got its entry");
     t.ok(&["ledger", "out"]);
-}
-
-/// Every file under `dir` with its bytes (relative names), for "nothing changed" checks.
-fn tree(dir: &std::path::Path) -> Vec<(String, Vec<u8>)> {
-    let mut out = Vec::new();
-    let mut stack = vec![dir.to_path_buf()];
-    while let Some(d) = stack.pop() {
-        for e in std::fs::read_dir(&d).unwrap() {
-            let p = e.unwrap().path();
-            if p.is_dir() {
-                stack.push(p);
-            } else {
-                out.push((p.strip_prefix(dir).unwrap().to_string_lossy().into_owned(), std::fs::read(&p).unwrap()));
-            }
-        }
-    }
-    out.sort();
-    out
 }
 
 /// Names beside the output that a split may leave only while it runs.
@@ -342,7 +320,7 @@ fn the_thread_count_changes_no_byte_of_a_split() {
     w.write(&batch).unwrap();
     drop(w);
     for input in ["in.parquet", "in.arrow", "in.csv"] {
-        let mut first: Option<Vec<(String, Vec<u8>)>> = None;
+        let mut first: Option<BTreeMap<String, Vec<u8>>> = None;
         for threads in ["1", "2", "3", "4"] {
             let out = format!("out-{threads}");
             let run = t
@@ -375,15 +353,6 @@ fn the_thread_count_changes_no_byte_of_a_split() {
             std::fs::remove_dir_all(t.path(&out)).unwrap();
         }
     }
-}
-
-/// Rewrites a manifest's body and recomputes its checksum line, as an insider would.
-fn reseal(path: &std::path::Path, edit: impl Fn(&str) -> String) {
-    let text = std::fs::read_to_string(path).unwrap();
-    let body_end = text.trim_end().rfind('\n').unwrap() + 1;
-    let body = edit(&text[..body_end]);
-    let sum = blake3::hash(body.as_bytes()).to_hex();
-    std::fs::write(path, format!("{body}checksum: {sum}\n")).unwrap();
 }
 
 /// Replaces the first `from` after `anchor`.
@@ -647,13 +616,9 @@ fn every_failing_file_system_step_leaves_the_old_state() {
         assert_eq!(std::fs::read(t.path(&format!("out/{name}"))).unwrap(), bytes, "{name}");
     }
     // Score: every failing step leaves the ledger as it was, and no stored file without its entry.
-    let ids: Vec<String> = records(&t.path("out/test.features.csv")).into_iter().map(|r| r[0].clone()).collect();
+    let ids = test_ids(&t.path("out"));
     for (file, class) in files.iter().zip(["none", "low"]) {
-        let mut text = String::from("row_id,prediction\n");
-        for id in &ids {
-            text.push_str(&format!("{id},{class}\n"));
-        }
-        t.write(file, text);
+        t.write(file, constant_predictions(&ids, class));
     }
     t.ok(&["score", &files[0], "--against", "out"]);
     let ledger = std::fs::read(t.path("out/ledger.jsonl")).unwrap();

@@ -1,5 +1,6 @@
 //! The test harness: a fresh folder per test and the real `cleave` binary.
 
+use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
@@ -142,4 +143,44 @@ pub fn folder_bytes(dir: &Path) -> Vec<(String, Vec<u8>)> {
 /// The manifest of an output folder as YAML.
 pub fn manifest(dir: &Path) -> serde_norway::Value {
     serde_norway::from_str(&std::fs::read_to_string(dir.join("manifest.yaml")).unwrap()).unwrap()
+}
+
+/// Every file under `dir`, in its subfolders too, with its bytes, by relative name (`scores/x`).
+pub fn tree(dir: &Path) -> BTreeMap<String, Vec<u8>> {
+    let mut out = BTreeMap::new();
+    let mut stack = vec![dir.to_path_buf()];
+    while let Some(d) = stack.pop() {
+        for e in std::fs::read_dir(&d).unwrap() {
+            let p = e.unwrap().path();
+            if p.is_dir() {
+                stack.push(p);
+            } else {
+                out.insert(p.strip_prefix(dir).unwrap().to_string_lossy().into_owned(), std::fs::read(&p).unwrap());
+            }
+        }
+    }
+    out
+}
+
+/// The row ids of a split folder's label-free test file.
+pub fn test_ids(dir: &Path) -> Vec<String> {
+    records(&dir.join("test.features.csv")).into_iter().map(|r| r[0].clone()).collect()
+}
+
+/// A predictions file that predicts `value` for every row id.
+pub fn constant_predictions(ids: &[String], value: &str) -> String {
+    let mut text = String::from("row_id,prediction\n");
+    for id in ids {
+        text.push_str(&format!("{id},{value}\n"));
+    }
+    text
+}
+
+/// Rewrites a manifest's body and recomputes its checksum line, as an insider would.
+pub fn reseal(path: &Path, edit: impl Fn(&str) -> String) {
+    let text = std::fs::read_to_string(path).unwrap();
+    let body_end = text.trim_end().rfind('\n').unwrap() + 1;
+    let body = edit(&text[..body_end]);
+    let sum = blake3::hash(body.as_bytes()).to_hex();
+    std::fs::write(path, format!("{body}checksum: {sum}\n")).unwrap();
 }

@@ -2,7 +2,7 @@
 
 use std::path::Path;
 
-use crate::util::Test;
+use crate::util::{reseal, Test};
 
 fn sealed() -> Test {
     let t = Test::new();
@@ -16,16 +16,6 @@ fn flip_byte(path: &Path, at: usize) {
     let at = at.min(b.len() - 1);
     b[at] ^= 0x01;
     std::fs::write(path, b).unwrap();
-}
-
-/// Rewrites the manifest with `edit` applied and a freshly computed checksum:
-/// what an insider with the tool could do.
-fn reseal(path: &Path, edit: impl Fn(&str) -> String) {
-    let text = std::fs::read_to_string(path).unwrap();
-    let body_end = text.trim_end().rfind('\n').unwrap() + 1;
-    let body = edit(&text[..body_end]);
-    let sum = blake3::hash(body.as_bytes()).to_hex();
-    std::fs::write(path, format!("{body}checksum: {sum}\n")).unwrap();
 }
 
 #[test]
