@@ -144,6 +144,8 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
             "dropped_by_gap": outcome.dropped_by_gap,
             "dropped_by_group_rule": outcome.dropped_by_group,
             "warnings": outcome.warnings,
+            "short_strata": m.strata.as_ref().map(|s| s.short.as_slice()).unwrap_or_default(),
+            "short_strata_count": m.strata.as_ref().map_or(0, |s| s.short_count.unwrap_or(s.short.len() as u64)),
         }))?;
         return Ok(Outcome::Ok);
     }

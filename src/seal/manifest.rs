@@ -20,6 +20,15 @@ use crate::io::{ColumnType, Format};
 
 /// The manifest format this build writes and reads.
 pub const FORMAT_VERSION: u32 = 1;
+/// The version of the rules that decide which row goes where (docs/format.md,
+/// "How a split decides"). 1: strata rounded one by one; 2: strata rounded
+/// together (controlled rounding). Manifests without the field are of 1.
+pub const ASSIGNMENT_VERSION: u32 = 2;
+
+fn assignment_v1() -> u32 {
+    1
+}
+
 /// The manifest's file name inside an output folder.
 pub const FILE_NAME: &str = "manifest.yaml";
 /// Manifests larger than this are refused before parsing.
@@ -31,6 +40,9 @@ pub const MAX_BYTES: u64 = 64 << 20;
 pub struct Manifest {
     /// Manifest format version.
     pub format_version: u32,
+    /// The assignment rules' version ([`ASSIGNMENT_VERSION`] when written).
+    #[serde(default = "assignment_v1")]
+    pub assignment_version: u32,
     /// The program that wrote it.
     pub tool: Tool,
     /// When it was written (RFC 3339, UTC; from `SOURCE_DATE_EPOCH` when set).
@@ -169,8 +181,12 @@ pub struct StrataRecord {
     pub columns: Vec<StratumColumn>,
     /// Number of strata.
     pub count: u64,
-    /// Strata too small to reach every partition.
+    /// Strata too small to reach every partition (the first 1,000 in label
+    /// order).
     pub short: Vec<ShortStratum>,
+    /// How many strata are too small to reach every partition.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub short_count: Option<u64>,
 }
 
 /// A stratum with no rows in some partition.

@@ -16,8 +16,8 @@ pub enum TimeKind {
 /// Microseconds in a day: a date is its midnight, in these units.
 pub const MICROS_PER_DAY: i64 = 86_400_000_000;
 use crate::error::Error;
-use crate::format::ColumnType;
 use crate::error::Result;
+use crate::format::ColumnType;
 use crate::io::Batch;
 use crate::value;
 use arrow_array::cast::AsArray;

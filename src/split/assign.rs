@@ -6,6 +6,7 @@ use super::config::{Opened, SplitConfig};
 use super::folds;
 use super::pass_one::RowFacts;
 use super::ratio::Ratios;
+use super::rounding;
 use super::strata::Strata;
 use super::structure::{self, parse_gap, TimePlan};
 use super::DROPPED;
@@ -31,7 +32,7 @@ pub(super) struct Assignment {
     pub(super) folds: Option<(Vec<u32>, FoldKind, u32)>,
     /// Strata too small to reach every partition.
     pub(super) short: Vec<ShortStratum>,
-    /// Warnings for the user, one per short stratum.
+    /// Warnings for the user (one line for all short strata).
     pub(super) warnings: Vec<String>,
 }
 
@@ -94,18 +95,11 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
         None => None,
     };
 
-    let mut warnings = Vec::new();
     let mut short = Vec::new();
     if !opened.stratify.is_empty() {
         for (s, c) in counts.iter().enumerate() {
             let missing: Vec<Partition> = partitions.iter().zip(c).filter(|(_, &c)| c == 0).map(|(p, _)| *p).collect();
             if !missing.is_empty() {
-                warnings.push(format!(
-                    "stratum `{}` has {} row(s), too few to reach every partition: none in {}",
-                    strata.labels[s],
-                    strata.sizes[s],
-                    missing.iter().map(|p| p.name()).collect::<Vec<_>>().join(", ")
-                ));
                 short.push(ShortStratum {
                     stratum: strata.labels[s].clone(),
                     rows: strata.sizes[s],
@@ -114,7 +108,46 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
             }
         }
     }
+    let warnings = short_warning(&short, &partitions).into_iter().collect();
     Ok(Assignment { partitions, partition, time_plan, gap, counts, totals, folds, short, warnings })
+}
+
+/// Short strata the manifest and the JSON report list by name (all are
+/// counted).
+pub(super) const LISTED_SHORT: usize = 1_000;
+
+/// One line for the strata too small to reach every partition: the
+/// stratum itself when there is one, else the counts (the list is in the
+/// manifest and the JSON report).
+fn short_warning(short: &[ShortStratum], partitions: &[Partition]) -> Option<String> {
+    match short {
+        [] => None,
+        [one] => Some(format!(
+            "stratum `{}` has {} row(s), too few to reach every partition: none in {}",
+            one.stratum,
+            one.rows,
+            one.missing_from.iter().map(|p| p.name()).collect::<Vec<_>>().join(", ")
+        )),
+        many => {
+            let rows: u64 = many.iter().map(|s| s.rows).sum();
+            let per: Vec<String> = partitions
+                .iter()
+                .map(|p| (p, many.iter().filter(|s| s.missing_from.contains(p)).count()))
+                .filter(|&(_, n)| n > 0)
+                .map(|(p, n)| format!("{n} none in {}", p.name()))
+                .collect();
+            let listed = if many.len() > LISTED_SHORT {
+                format!("the manifest counts them and lists the first {LISTED_SHORT} under strata.short")
+            } else {
+                "the manifest lists them under strata.short".into()
+            };
+            Some(format!(
+                "{} strata ({rows} rows) are too small to reach every partition ({}); {listed}",
+                many.len(),
+                per.join(", ")
+            ))
+        }
+    }
 }
 
 /// Rows per partition of each stratum (left-out rows not counted).
@@ -134,9 +167,12 @@ pub(super) struct Plan {
     pub(super) partition: Vec<u8>,
 }
 
-/// Decides every row's partition: strata in label order, each shared out by
-/// largest remainder, its rows (in input order) shuffled once and dealt out
-/// train first, then validation, then test.
+/// Decides every row's partition. One stratum is shared out by largest
+/// remainder; several by controlled rounding of the whole strata x
+/// partitions table (see [`rounding`]), so that strata and partition totals
+/// are both within one row of their exact shares. Each stratum's rows (in
+/// input order) are then shuffled once and dealt out train first, then
+/// validation, then test.
 pub(super) fn stratified(strata: &Strata, ratios: &Ratios, seed: u64) -> Plan {
     let n_strata = strata.sizes.len();
     // Rows grouped by stratum, in input order within each (a counting sort).
@@ -153,12 +189,15 @@ pub(super) fn stratified(strata: &Strata, ratios: &Ratios, seed: u64) -> Plan {
         grouped[fill[s as usize]] = row as u32;
         fill[s as usize] += 1;
     }
+    let counts = if n_strata > 1 {
+        rounding::controlled(&strata.sizes, ratios.weights(), seed)
+    } else {
+        strata.sizes.iter().map(|&n| ratios.allocate(n, &mut vec![0; ratios.partitions().len()])).collect()
+    };
     let mut rng = SplitRng::new(seed);
-    let mut done = vec![0u64; ratios.partitions().len()];
     let mut partition = vec![0u8; strata.row_stratum.len()];
-    for s in 0..n_strata {
+    for (s, c) in counts.iter().enumerate() {
         let rows = &mut grouped[offsets[s]..offsets[s + 1]];
-        let c = ratios.allocate(rows.len() as u64, &mut done);
         rng.shuffle(rows);
         let mut at = 0usize;
         for (p, &k) in c.iter().enumerate() {

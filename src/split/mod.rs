@@ -26,6 +26,7 @@ mod pass_one;
 mod pass_two;
 mod ratio;
 mod record;
+mod rounding;
 mod strata;
 mod structure;
 

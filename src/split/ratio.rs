@@ -86,6 +86,11 @@ impl Ratios {
         &self.text
     }
 
+    /// The shares as integer weights (their sum is 1 or 100 times a power of ten).
+    pub(crate) fn weights(&self) -> &[u128] {
+        &self.weights
+    }
+
     /// The share of partition `i` as a fraction.
     pub fn share(&self, i: usize) -> f64 {
         self.weights[i] as f64 / self.total as f64

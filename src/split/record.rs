@@ -3,7 +3,7 @@
 
 use std::collections::BTreeMap;
 
-use super::assign::Assignment;
+use super::assign::{Assignment, LISTED_SHORT};
 use super::config::{Opened, SplitConfig};
 use super::folds::{FoldCount, NO_FOLD};
 use super::pass_one::RowFacts;
@@ -16,6 +16,10 @@ use crate::seal::manifest::{
     PartitionRecord, SealRecord, Source, SplitOptionsRecord, StrataRecord, TimeRange, Tool,
 };
 use crate::seal::time::format_time;
+
+/// Strata up to which the manifest lists rows per stratum of every partition
+/// and fold.
+const LISTED_STRATA: usize = 10_000;
 
 /// The manifest and what the split tells the user besides.
 pub(super) struct Recorded {
@@ -68,8 +72,11 @@ pub(super) fn record(
             written.shared_with_test
         ));
     }
+    // Per-stratum counts are listed up to LISTED_STRATA strata: past that a
+    // stratum is nearly a row, and the lists would outgrow the manifest.
+    let listed = strata.labels.len() <= LISTED_STRATA;
     for (p, ((file, summary), d)) in written.files.iter().zip(&written.digests).enumerate() {
-        let strata_counts: BTreeMap<String, u64> = if stratify.is_empty() {
+        let strata_counts: BTreeMap<String, u64> = if stratify.is_empty() || !listed {
             BTreeMap::new()
         } else {
             counts.iter().enumerate().map(|(s, c)| (strata.labels[s].clone(), c[p])).collect()
@@ -101,7 +108,7 @@ pub(super) fn record(
         ));
     }
 
-    let largest_deviation: BTreeMap<String, String> = if facts.groups.is_some() && !stratify.is_empty() {
+    let largest_deviation: BTreeMap<String, String> = if facts.groups.is_some() && !stratify.is_empty() && listed {
         counts
             .iter()
             .enumerate()
@@ -138,7 +145,7 @@ pub(super) fn record(
             }
         }
         let mut per_stratum = BTreeMap::new();
-        if !stratify.is_empty() && *kind != FoldKind::LeaveOneOut {
+        if !stratify.is_empty() && listed && *kind != FoldKind::LeaveOneOut {
             let width = if *kind == FoldKind::RollingOrigin { *kk as usize + 1 } else { *kk as usize };
             let mut c = vec![vec![0u64; width]; strata.sizes.len()];
             for (row, &f) in fold.iter().enumerate() {
@@ -164,6 +171,7 @@ pub(super) fn record(
     };
     let manifest = Manifest {
         format_version: manifest::FORMAT_VERSION,
+        assignment_version: manifest::ASSIGNMENT_VERSION,
         tool: Tool { name: "cleave".into(), version: env!("CARGO_PKG_VERSION").into() },
         created: cfg.created.clone(),
         source: Source {
@@ -204,7 +212,8 @@ pub(super) fn record(
         strata: (!stratify.is_empty()).then(|| StrataRecord {
             columns: strata.columns.clone(),
             count: strata.labels.len() as u64,
-            short,
+            short_count: Some(short.len() as u64),
+            short: short.into_iter().take(LISTED_SHORT).collect(),
         }),
         groups: facts.groups.as_ref().map(|g| GroupRecord {
             columns: group.clone(),

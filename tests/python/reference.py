@@ -248,16 +248,17 @@ def check_penguins(binary, work):
         got[p] = Counter(r[0] for r in rows)
     totals = {s: sum(got[p][s] for p in got) for s in ("Adelie", "Gentoo", "Chinstrap")}
     assert totals == {"Adelie": 152, "Gentoo": 124, "Chinstrap": 68}, totals
-    # Worked by hand with largest remainder (strata in name order; ties to the
-    # partition furthest below its running share, then the earlier one):
-    # Adelie 106.4/22.8/22.8 -> 106/23/23; Chinstrap 47.6/10.2/10.2 -> 48/10/10;
-    # Gentoo 86.8/18.6/18.6 -> 87/19/18.
-    expected = {"Adelie": (106, 23, 23), "Chinstrap": (48, 10, 10), "Gentoo": (87, 19, 18)}
-    for s, want in expected.items():
+    # Controlled rounding (Cox 1987, JASA 82): every stratum's count and every
+    # partition's total is the floor or ceiling of its exact share. Checked
+    # here from the exact shares, with no use of cleave's procedure:
+    # Adelie 106.4/22.8/22.8, Chinstrap 47.6/10.2/10.2, Gentoo 86.8/18.6/18.6,
+    # and 344 rows 240.8/51.6/51.6.
+    for s in totals:
         have = tuple(got[p][s] for p in ("train", "validation", "test"))
-        assert have == want, (s, have, want)
-        assert largest_remainder_ok(totals[s], have, (0.7, 0.15, 0.15))
-    print("penguins:", {s: tuple(got[p][s] for p in got) for s in expected})
+        assert largest_remainder_ok(totals[s], have, (0.7, 0.15, 0.15)), (s, have)
+    sums = tuple(sum(got[p].values()) for p in ("train", "validation", "test"))
+    assert largest_remainder_ok(344, sums, (0.7, 0.15, 0.15)), sums
+    print("penguins:", {s: tuple(got[p][s] for p in got) for s in totals})
 
 
 def check_iris(binary, work):
@@ -275,12 +276,15 @@ def check_iris(binary, work):
         header, rows = read_csv(os.path.join(work, "out", f"{p}.csv"))
         col = header.index("species")
         got[p] = Counter(r[col] for r in rows)
-    # 50 x 0.7 = 35 exactly; 7.5 and 7.5 share the last row by the tie rule:
-    # setosa -> validation, versicolor -> test (now furthest below), virginica -> validation.
-    expected = {"setosa": (35, 8, 7), "versicolor": (35, 7, 8), "virginica": (35, 8, 7)}
-    for s, want in expected.items():
+    # 50 x 0.7 = 35 exactly and 7.5 / 7.5 round to 7 and 8 either way; the
+    # totals 105 / 22.5 / 22.5 to 105 and 22 or 23 (controlled rounding, Cox
+    # 1987: both margins within one row of their exact shares).
+    for s in ("setosa", "versicolor", "virginica"):
         have = tuple(got[p][s] for p in ("train", "validation", "test"))
-        assert have == want, (s, have)
+        assert have[0] == 35 and sorted(have[1:]) == [7, 8], (s, have)
+    sums = tuple(sum(got[p].values()) for p in ("train", "validation", "test"))
+    assert sums[0] == 105 and sorted(sums[1:]) == [22, 23], sums
+    expected = {s: tuple(got[p][s] for p in ("train", "validation", "test")) for s in ("setosa", "versicolor", "virginica")}
     print("iris:", expected)
 
 
