@@ -76,9 +76,22 @@ pub struct Args {
     /// Refuse the input unless its BLAKE3 is this one (64 hex digits).
     #[arg(long, value_name = "HASH", value_parser = parse_digest)]
     expect_input_digest: Option<String>,
+    /// Keep rows whose label is null: counted in the manifest and left out of scoring (default: refuse them).
+    #[arg(long)]
+    allow_null_label: bool,
+    /// Refuse a split in which a partition ends with less than this part of its asked share (0 to 1).
+    #[arg(long, default_value_t = 0.5, value_name = "PART", value_parser = parse_min_share)]
+    min_share: f64,
     /// Print one JSON document instead of text.
     #[arg(long)]
     json: bool,
+}
+
+fn parse_min_share(s: &str) -> Result<f64, String> {
+    match s.parse::<f64>() {
+        Ok(v) if (0.0..=1.0).contains(&v) => Ok(v),
+        _ => Err(format!("`{s}` is not a part between 0 and 1 (0.5: half the asked share)")),
+    }
 }
 
 /// Parses a BLAKE3 hash given on the command line: 64 hexadecimal digits, any case.
@@ -118,6 +131,8 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         order_by: args.order_by,
         gap: args.gap,
         stable: args.stable,
+        allow_null_label: args.allow_null_label,
+        min_share: args.min_share,
         folds,
         fold_column: args.fold_column,
         digest_key: args.digest_key.as_deref().map(crate::cli::read_key).transpose()?,

@@ -42,7 +42,7 @@ mod truth;
 pub use self::metric::{metric_value, Direction, Metric, MetricInfo, Rows, Scores, METRICS};
 pub use self::predictions::{decode_predictions, encode_predictions, load_predictions, Predictions};
 pub use self::resample::{bootstrap_interval, optimism, quantile};
-pub use self::truth::{load_truth, positive_class, Truth};
+pub use self::truth::{load_truth, positive_class, scored_rows, Truth};
 
 use std::path::{Path, PathBuf};
 
@@ -50,7 +50,7 @@ use self::ledger::{EntryBody, Ledger};
 use crate::error::{Error, Result};
 use crate::format::Format;
 use crate::seal::handoff::RowIds;
-use crate::seal::manifest::{self, LoadedManifest};
+use crate::seal::manifest::{self, LoadedManifest, Partition};
 use crate::seal::verify;
 
 /// One scoring, as the command line asks for it.
@@ -154,9 +154,19 @@ pub fn run(opts: &ScoreOptions) -> Result<Scoring> {
     }
     let (truth, metric) = load_truth(&loaded, opts.metric)?;
     let positive = positive_class(&truth, metric, opts.positive.as_deref())?;
-    let mut ids: Vec<String> = Vec::with_capacity(truth.len());
-    RowIds::new(loaded.manifest.options.seed).each_id(1..truth.len() as u64 + 1, |id| ids.push(id.to_string()));
-    let preds = load_predictions(&opts.predictions, opts.format, &truth, metric, positive, &ids)?;
+    // Predictions come for every test row; rows left out of scoring (a null
+    // label kept by --allow-null-label) are dropped after alignment.
+    let scored = scored_rows(&loaded)?;
+    let test_rows = scored
+        .as_ref()
+        .map_or(truth.len(), |_| loaded.manifest.partition(Partition::Test).map_or(0, |p| p.rows as usize));
+    let mut ids: Vec<String> = Vec::with_capacity(test_rows);
+    RowIds::new(loaded.manifest.options.seed).each_id(1..test_rows as u64 + 1, |id| ids.push(id.to_string()));
+    let mut preds = load_predictions(&opts.predictions, opts.format, &truth, metric, positive, &ids)?;
+    if let Some(rows) = &scored {
+        preds = preds.select(rows);
+        ids = rows.iter().map(|&r| std::mem::take(&mut ids[r as usize])).collect();
+    }
     let n = truth.len();
     let all: Vec<u32> = (0..n as u32).collect();
     let value = metric_value(metric, &truth, &preds, positive, &all).ok_or_else(|| {

@@ -30,6 +30,18 @@ pub enum Predictions {
 }
 
 impl Predictions {
+    /// The predictions of the rows at `rows` (positions), in that order.
+    pub fn select(&self, rows: &[u32]) -> Predictions {
+        match self {
+            Predictions::Numbers(v) => Predictions::Numbers(rows.iter().map(|&r| v[r as usize]).collect()),
+            Predictions::Classes(c) => Predictions::Classes(rows.iter().map(|&r| c[r as usize]).collect()),
+            Predictions::Probabilities { classes, p } => Predictions::Probabilities {
+                classes: *classes,
+                p: rows.iter().flat_map(|&r| &p[r as usize * classes..(r as usize + 1) * classes]).copied().collect(),
+            },
+        }
+    }
+
     /// The values as one flat list (for storing), and the number per row.
     pub fn flat(&self) -> (Vec<f64>, usize) {
         match self {

@@ -51,7 +51,10 @@ impl Truth {
 
 // ---- loading the sealed labels and the predictions ----------------------------
 
-/// The sealed labels, in test-row order, and whether they are numbers.
+/// The sealed labels of the test rows that are scored, in test-row order.
+/// A split made with `--allow-null-label` leaves rows with a null label out
+/// of scoring: the labels are then those of the other rows, and
+/// [`scored_rows`] says which.
 ///
 /// # Errors
 /// No label, several labels, an unreadable test partition, a test row without a label.
@@ -85,12 +88,17 @@ pub fn load_truth(loaded: &LoadedManifest, metric: Option<Metric>) -> Result<(Tr
     let mut batches = table.batches(Some(std::slice::from_ref(&label)), false)?;
     let mut numbers = Vec::new();
     let mut texts = Vec::new();
+    let allow_null = m.options.allow_null_label;
     while let Some(batch) = batches.next_batch()? {
-        let col = batch.data.column_by_name(&label).expect("projected").clone();
-        for i in 0..col.len() {
-            if col.is_null(i) {
+        let mut col = batch.data.column_by_name(&label).expect("projected").clone();
+        if col.null_count() > 0 {
+            if !allow_null {
+                let i = (0..col.len()).find(|&i| col.is_null(i)).expect("a null");
                 return Err(batch.error_at(&path, i, &label, "has no label; every test row needs one to be scored"));
             }
+            let keep = arrow_array::BooleanArray::from((0..col.len()).map(|i| col.is_valid(i)).collect::<Vec<_>>());
+            col = arrow_select::filter::filter(&col, &keep)
+                .map_err(|e| Error::column(&path, &label, format!("cannot be filtered: {e}")))?;
         }
         if metric.is_regression() {
             let f = arrow_cast::cast(&col, &DataType::Float64)
@@ -114,6 +122,35 @@ pub fn load_truth(loaded: &LoadedManifest, metric: Option<Metric>) -> Result<(Tr
     let index: HashMap<&str, u32> = names.iter().enumerate().map(|(i, n)| (n.as_str(), i as u32)).collect();
     let y = texts.iter().map(|t| index[t.as_str()]).collect();
     Ok((Truth::Classes { names, y }, metric))
+}
+
+/// The positions (0-based, in test-row order) of the test rows that are
+/// scored, when a split made with `--allow-null-label` leaves some out;
+/// `None` when every row is scored.
+///
+/// # Errors
+/// An unreadable test partition.
+pub fn scored_rows(loaded: &LoadedManifest) -> Result<Option<Vec<u32>>> {
+    let m = &loaded.manifest;
+    let ([label], true) = (m.options.label.as_slice(), m.options.allow_null_label) else { return Ok(None) };
+    let part = m.partition(Partition::Test).ok_or_else(|| Error::Options("the seal has no test partition".into()))?;
+    let path = loaded.file(&part.file);
+    let hints: TypeHints = m.source.columns.iter().map(|c| (c.name.clone(), c.column_type)).collect();
+    let table = Table::open(&path, part.format, &hints)?;
+    let mut batches = table.batches(Some(std::slice::from_ref(label)), false)?;
+    let (mut rows, mut at, mut left_out) = (Vec::new(), 0u32, false);
+    while let Some(batch) = batches.next_batch()? {
+        let col = batch.data.column_by_name(label).expect("projected");
+        for i in 0..col.len() {
+            if col.is_valid(i) {
+                rows.push(at);
+            } else {
+                left_out = true;
+            }
+            at += 1;
+        }
+    }
+    Ok(left_out.then_some(rows))
 }
 
 /// The class index `--positive` names, or the default one (true for

@@ -103,6 +103,10 @@ pub struct Source {
     pub rows: u64,
     /// Columns in file order with their types by meaning.
     pub columns: Vec<ColumnRecord>,
+    /// Null values per label column, kept with `--allow-null-label` (such
+    /// rows are left out of scoring).
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub null_labels: BTreeMap<String, u64>,
 }
 
 /// A column and its type.
@@ -144,6 +148,9 @@ pub struct SplitOptionsRecord {
     /// Stable (hash-based) assignment.
     #[serde(default, skip_serializing_if = "std::ops::Not::not")]
     pub stable: bool,
+    /// `--allow-null-label`: rows with a null label kept.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub allow_null_label: bool,
     /// `--folds` as given.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub folds: Option<String>,

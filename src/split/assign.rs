@@ -85,6 +85,7 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
             partitions[p]
         )));
     }
+    refuse_far_shares(cfg, facts, &totals, time_plan.as_ref())?;
     let test_index = k - 1;
     let folds = match &cfg.folds {
         Some((count, _)) => {
@@ -110,6 +111,45 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
     }
     let warnings = short_warning(&short, &partitions).into_iter().collect();
     Ok(Assignment { partitions, partition, time_plan, gap, counts, totals, folds, short, warnings })
+}
+
+/// Refuses an assignment in which a partition ends with less than
+/// `--min-share` of its asked share, naming the cause and every
+/// partition's achieved share.
+fn refuse_far_shares(cfg: &SplitConfig, facts: &RowFacts, totals: &[u64], time_plan: Option<&TimePlan>) -> Result<()> {
+    let rows = facts.rows;
+    let partitions = cfg.ratios.partitions();
+    let far = (0..totals.len()).find(|&p| (totals[p] as f64) < cfg.min_share * cfg.ratios.share(p) * rows as f64);
+    let Some(p) = far else { return Ok(()) };
+    let achieved: Vec<String> = partitions
+        .iter()
+        .zip(totals)
+        .zip(cfg.ratios.text())
+        .map(|((name, &t), asked)| format!("{name} {t} ({:.1}%, asked {asked})", 100.0 * t as f64 / rows as f64))
+        .collect();
+    let dropped_by_group: u64 = time_plan.map_or(0, |t| t.dropped_by_group.iter().sum());
+    let dropped_by_gap: u64 = time_plan.map_or(0, |t| t.dropped_by_gap.iter().sum());
+    let cause = if dropped_by_group > 0 {
+        format!(
+            "{dropped_by_group} rows are left out because their group started in an earlier partition: groups of `{}` span much of the time range",
+            cfg.group.join(",")
+        )
+    } else if dropped_by_gap > 0 {
+        format!("--gap leaves out {dropped_by_gap} rows")
+    } else if let Some(g) = &facts.groups {
+        let largest = g.sizes.iter().max().copied().unwrap_or(0);
+        format!("the groups are too few or too large to share out (the largest holds {largest} rows)")
+    } else if time_plan.is_some() {
+        "too many rows share the same times".to_string()
+    } else {
+        "too few rows".to_string()
+    };
+    Err(Error::Options(format!(
+        "the {} partition would end far from its asked share ({}), under --min-share {} of it: {cause}",
+        partitions[p],
+        achieved.join(", "),
+        cfg.min_share
+    )))
 }
 
 /// Short strata the manifest and the JSON report list by name (all are

@@ -51,6 +51,12 @@ pub struct SplitConfig {
     pub gap: Option<String>,
     /// Stable, hash-based assignment.
     pub stable: bool,
+    /// Keep rows whose label is null (counted in the manifest, left out of
+    /// scoring) instead of refusing the input.
+    pub allow_null_label: bool,
+    /// The least share of its asked share a partition may end with (0.5:
+    /// half); below it the split is refused.
+    pub min_share: f64,
     /// Cross-validation folds over the development rows.
     pub folds: Option<(FoldCount, String)>,
     /// Name of the fold column.
@@ -121,7 +127,7 @@ pub(super) fn open(cfg: &SplitConfig) -> Result<Opened> {
     // CSV: the type-inference pass also keeps the columns pass one needs,
     // so the file is read twice in all, not three times.
     let mut pass_one_columns: Vec<String> =
-        cfg.stratify.iter().chain(&cfg.group).chain(&cfg.order_by).cloned().collect();
+        cfg.stratify.iter().chain(&cfg.group).chain(&cfg.order_by).chain(&cfg.label).cloned().collect();
     pass_one_columns.sort();
     pass_one_columns.dedup();
     let keep = (format == Format::Csv && !(cfg.stable && cfg.group.is_empty())).then_some(pass_one_columns.as_slice());

@@ -25,6 +25,9 @@ pub(super) struct RowFacts {
     pub(super) times: Option<(Vec<i64>, TimeKind)>,
     /// Row digests, for `--stable` without groups.
     pub(super) stable_keys: Option<Vec<RowDigest>>,
+    /// Null values per label column (with `--allow-null-label`; without it
+    /// a null label is an error).
+    pub(super) null_labels: Vec<(String, u64)>,
 }
 
 /// Pass one: reads only the columns that decide partitions (stratify, group
@@ -35,11 +38,14 @@ pub(super) struct RowFacts {
 /// group column that is entirely null.
 pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFacts> {
     let (table, format, spec) = (&opened.table, opened.format, &opened.spec);
-    let (stratify, group) = (opened.stratify_types.as_slice(), opened.group.as_slice());
+    let (stratify, group, label) = (opened.stratify_types.as_slice(), opened.group.as_slice(), opened.label.clone());
     let kept = opened.kept.take();
     let mut needed: Vec<String> = stratify.iter().map(|(n, _)| n.clone()).collect();
     needed.extend(group.iter().cloned());
     needed.extend(cfg.order_by.iter().cloned());
+    needed.extend(opened.label.iter().cloned());
+    needed.sort();
+    needed.dedup();
     let stable_rows = cfg.stable && group.is_empty();
     if stable_rows {
         needed.extend(spec.columns());
@@ -89,9 +95,20 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     let mut pending: Vec<RowDigest> = Vec::new();
     let mut fresh: Vec<RowDigest> = Vec::new();
     let mut rows = 0u64;
+    let mut null_labels: Vec<(String, u64)> = label.iter().map(|l| (l.clone(), 0)).collect();
+    let mut first_null: Option<Error> = None;
     while let Some(batch) = next_batch()? {
         crate::interrupt::check()?;
         rows += batch.data.num_rows() as u64;
+        for (name, count) in null_labels.iter_mut() {
+            let col = batch.data.column_by_name(name).expect("projected");
+            let nulls = col.null_count();
+            if nulls > 0 && first_null.is_none() {
+                let i = (0..col.len()).find(|&i| col.is_null(i)).expect("a null");
+                first_null = Some(batch.error_at(&cfg.input, i, name, "is null"));
+            }
+            *count += nulls as u64;
+        }
         let dictionary = match group {
             [column] if group_spec.is_some() => batch
                 .data
@@ -159,10 +176,25 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
             return Err(Error::column(&cfg.input, &group[i], "is entirely null, so --group finds no groups in it"));
         }
     }
+    if let Some(Error::Malformed { path, line, row, column, .. }) = first_null.filter(|_| !cfg.allow_null_label) {
+        let (name, count) = null_labels.iter().find(|(_, c)| *c > 0).expect("a null label");
+        return Err(Error::Malformed {
+            path,
+            line,
+            row,
+            column,
+            what: format!(
+                "the label is null here and in {} other row(s) of `{name}`: a test row without a label cannot be scored; \
+                 drop or fill them, or pass --allow-null-label to keep them (counted in the manifest, left out of scoring)",
+                count - 1
+            ),
+        });
+    }
+    null_labels.retain(|(_, c)| *c > 0);
     let strata = match strata_builder {
         Some(b) => b.finish(),
         None => strata::single(rows),
     };
     let times = times.map(|(v, k)| (v, k.unwrap_or(TimeKind::Integer)));
-    Ok(RowFacts { rows, strata, groups, times, stable_keys })
+    Ok(RowFacts { rows, strata, groups, times, stable_keys, null_labels })
 }

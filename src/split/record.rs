@@ -185,6 +185,7 @@ pub(super) fn record(
                 .into_iter()
                 .map(|(name, t)| ColumnRecord { name, column_type: t.unwrap_or(ColumnType::Other) })
                 .collect(),
+            null_labels: facts.null_labels.iter().cloned().collect(),
         },
         options: SplitOptionsRecord {
             ratios: cfg.ratios.text().to_vec(),
@@ -197,6 +198,7 @@ pub(super) fn record(
             order_by: cfg.order_by.clone(),
             gap: cfg.gap.clone(),
             stable: cfg.stable,
+            allow_null_label: cfg.allow_null_label,
             folds: cfg.folds.as_ref().map(|(_, text)| text.clone()),
             output_format,
             compression: cfg.compression.as_ref().map(|(_, text)| text.clone()),

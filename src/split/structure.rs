@@ -12,12 +12,12 @@
 //!   largest-remainder counts, moved to the nearest change of time so that
 //!   equal times never straddle. With partition start time s, rows of the
 //!   earlier partitions with time > s - gap are left out.
-//! - **Time with groups**: the periods are cut as without groups; a group
-//!   then belongs to the partition of the period in which it first appears.
-//!   Rows of a group that fall after s - gap for a later partition's start s
-//!   are left out and counted, so no train row is at or after the validation
-//!   or test start, and no validation row at or after the test start. Shares
-//!   then differ from the asked ones by the rows this costs.
+//! - **Time with groups**: a group belongs to the partition of the period in
+//!   which it first appears, and the cuts fall at group start times chosen
+//!   to leave out the fewest rows (see [`group_cuts`]). Rows of a group that
+//!   fall after s - gap for a later partition's start s are left out and
+//!   counted, so no train row is at or after the validation or test start,
+//!   and no validation row at or after the test start.
 //! - **Stable** (`--stable`): a row's (or group's) partition is read off a
 //!   keyed BLAKE3 hash of its digest and the seed, so it never moves when other
 //!   rows come or go; shares are then approximate.
@@ -278,6 +278,75 @@ fn snap(sorted: &[i64], target: usize) -> usize {
     }
 }
 
+/// The start times of partitions 1..k of a time-ordered grouped split
+/// (`firsts[row]`: the first time of the row's group), one cut at a time.
+///
+/// A cut at time c puts the groups that start before c in the earlier
+/// partitions and leaves out their rows with time > c - gap (those at or
+/// after c by the group rule, the others by the gap). The candidates are
+/// the group start times at which the rows of groups starting earlier are
+/// within `largest` (the largest group's rows) of the asked count, or the
+/// nearest such time when none is; among them the cut leaves out the fewest
+/// rows, then comes nearest the asked count, then is the earlier. Each cut
+/// is placed after the one before, counting only the rows of the groups
+/// between them (rows of earlier groups are out already).
+fn group_cuts(times: &[i64], firsts: &[i64], totals: &[u64], largest: u64, gap: i64) -> Vec<i64> {
+    let k = totals.len();
+    // Group start times, with the number of rows whose group starts before each.
+    let mut by_first: Vec<(i64, i64)> = firsts.iter().zip(times).map(|(&f, &t)| (f, t)).collect();
+    by_first.sort_unstable();
+    // Each distinct group start time with the index of its first row.
+    let group_starts: Vec<(i64, usize)> = (0..by_first.len())
+        .filter(|&i| i == 0 || by_first[i].0 != by_first[i - 1].0)
+        .map(|i| (by_first[i].0, i))
+        .collect();
+    let mut cuts = Vec::with_capacity(k - 1);
+    let mut from = 0usize; // the first row of the groups after the previous cut
+    let mut next_start = 1usize; // the first candidate in group_starts
+    let mut target = 0u64;
+    for (cut, &want) in totals[..k - 1].iter().enumerate() {
+        target += want;
+        // Rows of groups starting at or after the previous cut, their times sorted.
+        let mut later: Vec<i64> = by_first[from..].iter().map(|&(_, t)| t).collect();
+        later.sort_unstable();
+        // Leave a group start for every cut still to come.
+        let last = group_starts.len().saturating_sub(k - 2 - cut);
+        let mut best: Option<(u64, u64, i64, usize)> = None; // (left out, distance, time, position)
+        let mut nearest: Option<(u64, usize)> = None;
+        for (j, &(c, i)) in group_starts.iter().enumerate().take(last).skip(next_start) {
+            let before = i as u64;
+            let distance = before.abs_diff(target);
+            if nearest.is_none_or(|(d, _)| distance < d) {
+                nearest = Some((distance, j));
+            }
+            if distance <= largest {
+                // Rows of the groups between the cuts with time > c - gap,
+                // less those of the groups from c on (all later than c).
+                let reach = later.len() - later.partition_point(|&t| t <= c.saturating_sub(gap));
+                let left_out = (reach - (by_first.len() - i)) as u64;
+                if best.is_none_or(|b| (left_out, distance, c) < (b.0, b.1, b.2)) {
+                    best = Some((left_out, distance, c, j));
+                }
+            } else if before > target {
+                break;
+            }
+        }
+        match best.map(|b| b.3).or(nearest.map(|n| n.1)) {
+            Some(j) => {
+                let (c, i) = group_starts[j];
+                cuts.push(c);
+                from = i;
+                next_start = j + 1;
+            }
+            None => {
+                cuts.push(i64::MAX);
+                next_start = group_starts.len();
+            }
+        }
+    }
+    cuts
+}
+
 /// A time-ordered assignment.
 pub struct TimePlan {
     /// Partition per row (or [`DROPPED`]).
@@ -323,22 +392,34 @@ pub fn assign_time(times: &[i64], groups: Option<&Groups>, ratios: &Ratios, gap:
         }
     }
     if let Some(groups) = groups {
-        // A group belongs to the period in which it first appears.
+        // A group belongs to the period in which it first appears; the cuts
+        // are placed again, at group starts, to leave out the fewest rows.
         let mut first = vec![i64::MAX; groups.len()];
         for (row, &g) in groups.row_group.iter().enumerate() {
             first[g as usize] = first[g as usize].min(times[row]);
         }
+        let firsts: Vec<i64> = groups.row_group.iter().map(|&g| first[g as usize]).collect();
+        let largest = groups.sizes.iter().copied().max().unwrap_or(1);
+        let cuts = group_cuts(times, &firsts, &totals, largest, gap);
+        for (p, &c) in cuts.iter().enumerate() {
+            starts[p + 1] = c;
+        }
+        starts[0] = sorted.first().copied().unwrap_or(i64::MAX);
         let period = |t: i64| (0..k).rev().find(|&q| starts[q] != i64::MAX && t >= starts[q]).unwrap_or(0) as u8;
-        for (row, &g) in groups.row_group.iter().enumerate() {
-            partition[row] = period(first[g as usize]);
+        for (row, &f) in firsts.iter().enumerate() {
+            partition[row] = period(f);
         }
     }
     for (p, s) in starts.iter().enumerate() {
         if *s == i64::MAX {
-            return Err(Error::Options(format!(
-                "the order column leaves the {} partition empty: too many rows share the same times",
-                ratios.partitions()[p]
-            )));
+            return Err(Error::Options(if groups.is_some() {
+                format!("no group starts late enough to begin the {} partition", ratios.partitions()[p])
+            } else {
+                format!(
+                    "the order column leaves the {} partition empty: too many rows share the same times",
+                    ratios.partitions()[p]
+                )
+            }));
         }
     }
     let mut dropped_by_gap = vec![0u64; k];
@@ -532,6 +613,38 @@ mod tests {
                     prop_assert!(times[row] < test_start, "a {} row at {} is at or after the test start {}", q, times[row], test_start);
                     prop_assert!(times[row] <= test_start - gap);
                 }
+            }
+        }
+
+        /// Groups that do not overlap in time (each a run of consecutive
+        /// times) are cut between, never through: no row is left out, and
+        /// each partition is within one group of its asked count.
+        #[test]
+        fn disjoint_groups_lose_no_row(sizes in proptest::collection::vec(1usize..12, 6..60), r in ratios(), seed in any::<u64>()) {
+            let mut ids = Vec::new();
+            let mut times = Vec::new();
+            let mut t = 0i64;
+            for (g, &n) in sizes.iter().enumerate() {
+                for _ in 0..n {
+                    ids.push(g as u8);
+                    times.push(t);
+                    t += 1 + (seed % 3) as i64;
+                }
+            }
+            // Rows in a seeded order, as in a file.
+            let mut order: Vec<usize> = (0..ids.len()).collect();
+            SplitRng::new(seed).shuffle(&mut order);
+            let ids: Vec<u8> = order.iter().map(|&i| ids[i]).collect();
+            let times: Vec<i64> = order.iter().map(|&i| times[i]).collect();
+            let groups = groups_of(&ids);
+            let Ok(plan) = assign_time(&times, Some(&groups), &r, 0) else { return Ok(()); };
+            prop_assert!(!plan.partition.contains(&DROPPED));
+            let k = r.partitions().len();
+            let n = times.len() as f64;
+            let largest = *sizes.iter().max().unwrap() as f64;
+            for p in 0..k {
+                let got = plan.partition.iter().filter(|&&q| q as usize == p).count() as f64;
+                prop_assert!((got - n * r.share(p)).abs() <= largest + 1.0, "partition {}: {} of {}", p, got, n);
             }
         }
 

@@ -75,3 +75,80 @@ fn the_rounding_is_the_same_on_every_run_and_moves_with_the_seed() {
     assert_eq!(tree(&t.path("a")), tree(&t.path("b")));
     assert_ne!(std::fs::read(t.path("a/test.csv")).unwrap(), std::fs::read(t.path("c/test.csv")).unwrap());
 }
+
+/// Station samples with a bloom class that is missing for every 20th.
+fn with_missing_labels(t: &Test) {
+    let mut csv = String::from("sample_id,station,nitrate_mg_l,bloom_class\n");
+    for i in 0..400 {
+        let class = if i % 20 == 7 {
+            ""
+        } else if i % 3 == 0 {
+            "high"
+        } else {
+            "none"
+        };
+        csv.push_str(&format!("{i},st{},{}.{},{class}\n", i % 9, i % 7, i % 10));
+    }
+    t.write("samples.csv", csv);
+}
+
+#[test]
+fn a_null_label_is_refused_at_split_time_naming_the_line() {
+    let t = Test::new();
+    with_missing_labels(&t);
+    let r = t.run(&["split", "samples.csv", "--out", "out", "--label", "bloom_class"]);
+    // Row 7 is on line 9 (the header is line 1); 20 rows have no label.
+    r.fails_with(&["samples.csv", "line 9", "bloom_class", "19 other row(s)", "--allow-null-label"]);
+    assert!(!t.path("out").exists(), "nothing written");
+}
+
+#[test]
+fn null_labels_kept_on_request_are_counted_and_left_out_of_scoring() {
+    let t = Test::new();
+    with_missing_labels(&t);
+    t.ok(&["split", "samples.csv", "--out", "out", "--label", "bloom_class", "--allow-null-label"]);
+    let m = manifest(&t.path("out"));
+    assert_eq!(m["source"]["null_labels"]["bloom_class"].as_u64(), Some(20));
+    assert_eq!(m["options"]["allow_null_label"].as_bool(), Some(true));
+    let test = records(&t.path("out/test.csv"));
+    let labelled = test.iter().filter(|r| !r[3].is_empty()).count();
+    assert!(labelled < test.len(), "some test rows have no label");
+    let ids = test_ids(&t.path("out"));
+    t.write("preds.csv", constant_predictions(&ids, "none"));
+    let j = t.ok(&["score", "preds.csv", "--against", "out", "--json"]).json();
+    assert_eq!(j["rows"].as_u64(), Some(labelled as u64), "{j}");
+    // Accuracy of always saying `none`, over the labelled test rows alone.
+    let right = test.iter().filter(|r| r[3] == "none").count() as f64;
+    assert!((j["value"].as_f64().unwrap() - right / labelled as f64).abs() < 1e-12, "{j}");
+    // And again: the stored predictions of the first scoring are re-read against the same rows.
+    t.write("preds2.csv", constant_predictions(&ids, "high"));
+    t.ok(&["score", "preds2.csv", "--against", "out"]);
+}
+
+/// Two stations whose samples span the whole period, and two sampled once
+/// each late in it: grouped by station and ordered by day, validation and
+/// test can hold nothing but the two late samples.
+#[test]
+fn a_partition_far_from_its_share_is_refused_with_the_cause() {
+    let t = Test::new();
+    let mut csv = String::from("station,day,nitrate_mg_l\n");
+    for day in 0..300 {
+        for st in ["ALD", "BRK"] {
+            csv.push_str(&format!("{st},{day},{}\n", day % 7));
+        }
+    }
+    csv.push_str("CED,215,1\nDEE,280,2\n");
+    t.write("samples.csv", csv);
+    let r = t.run(&["split", "samples.csv", "--out", "out", "--group", "station", "--order-by", "day"]);
+    r.fails_with(&[
+        "validation partition would end far from its asked share",
+        "validation 1 (0.2%, asked 15)",
+        "--min-share 0.5",
+        "`station`",
+    ]);
+    assert!(!t.path("out").exists());
+    // Asked to accept it, the split goes through and says what it cost.
+    let r =
+        t.ok(&["split", "samples.csv", "--out", "out", "--group", "station", "--order-by", "day", "--min-share", "0"]);
+    assert!(r.stderr.contains("left out"), "{}", r.stderr);
+}

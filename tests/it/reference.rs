@@ -73,3 +73,13 @@ fn test_partition_exported_by_pyarrow_is_found_in_full() {
 fn metrics_agree_with_numpy_and_scipy() {
     reference("metrics");
 }
+
+#[test]
+fn daily_weather_grouped_by_month_loses_no_row() {
+    reference("weather_months");
+}
+
+#[test]
+fn flights_grouped_by_aircraft_are_refused_or_meet_their_shares() {
+    reference("flights");
+}

