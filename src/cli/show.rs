@@ -104,7 +104,8 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         }
     }
     if let Some(f) = &m.folds {
-        t.push_str(&format!("\nfolds: {} ({}) in column `{}`\n", f.k, f.kind.name(), f.column));
+        let column = f.column.as_ref().map(|c| format!(" in column `{c}`")).unwrap_or_default();
+        t.push_str(&format!("\nfolds: {} ({}){column}\n", f.k, f.kind.name()));
         if f.blocks.is_empty() {
             for p in m.partitions.iter().filter(|p| !p.folds.is_empty()) {
                 let sizes: Vec<String> = p.folds.iter().map(|(k, n)| format!("{k}:{n}")).collect();
@@ -112,12 +113,27 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
             }
         } else {
             for b in &f.blocks {
-                let role = if b.block == 0 { "trains only".to_string() } else { format!("validates fold {}", b.block) };
+                let role = if f.kind != crate::seal::manifest::FoldKind::RollingOrigin {
+                    let by: Vec<String> = f
+                        .splits
+                        .iter()
+                        .filter(|s| s.validates.contains(&b.block))
+                        .map(|s| s.split.to_string())
+                        .collect();
+                    format!("validated in split {}", by.join(", "))
+                } else if b.block == 0 {
+                    "trains only".to_string()
+                } else {
+                    format!("validates fold {}", b.block)
+                };
                 t.push_str(&format!(
                     "  block {:<3} {:>8} rows  {} .. {}  {role}\n",
                     b.block, b.rows, b.time.first, b.time.last
                 ));
             }
+        }
+        if !f.splits.is_empty() {
+            t.push_str(&fold_splits(f));
         }
         for (stratum, sizes) in &f.strata {
             let sizes: Vec<String> = sizes.iter().map(|n| n.to_string()).collect();
@@ -180,4 +196,58 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
     }
     output::print(&t)?;
     Ok(Outcome::Ok)
+}
+
+/// Every split of a fold design, one line each: its membership column, a
+/// picture of its blocks (V validated, T trains, `.` unused; windows have
+/// none) and its row counts.
+fn fold_splits(f: &crate::seal::manifest::FoldRecord) -> String {
+    use crate::seal::manifest::FoldKind;
+    let mut t = String::new();
+    if let Some(u) = &f.until {
+        t.push_str(&format!("  label intervals end at `{}`", sanitize(u)));
+        t.push_str(&f.embargo.as_ref().map(|e| format!("; embargo {}", sanitize(e))).unwrap_or_default());
+        t.push('\n');
+    }
+    let blocks = f.blocks.len();
+    t.push_str(&format!(
+        "  {:<10} {:<width$}  {:>9} {:>9} {:>9}\n",
+        "column",
+        "blocks",
+        "train",
+        "validate",
+        "out",
+        width = (2 * blocks).max(6)
+    ));
+    for (s, name) in f.splits.iter().zip(&f.membership) {
+        let picture: String = (0..blocks as u32)
+            .map(|b| {
+                let c = if s.validates.contains(&b) {
+                    'V'
+                } else if f.kind == FoldKind::RollingOrigin && s.validates.iter().all(|&v| b > v) {
+                    '.'
+                } else {
+                    'T'
+                };
+                format!("{c} ")
+            })
+            .collect();
+        t.push_str(&format!(
+            "  {:<10} {:<width$}  {:>9} {:>9} {:>9}\n",
+            sanitize(name),
+            picture.trim_end(),
+            s.train,
+            s.validate,
+            s.out,
+            width = (2 * blocks).max(6)
+        ));
+    }
+    if !f.paths.is_empty() {
+        t.push_str(&format!("  {} paths (the split each block's predictions come from):\n", f.paths.len()));
+        for (j, path) in f.paths.iter().enumerate() {
+            let splits: Vec<String> = path.iter().map(|s| s.to_string()).collect();
+            t.push_str(&format!("    path {j}: {}\n", splits.join(" ")));
+        }
+    }
+    t
 }

@@ -46,9 +46,27 @@ pub struct Args {
     /// Read each row's (or group's) partition off a keyed hash, so it never moves when rows are added.
     #[arg(long)]
     stable: bool,
-    /// Cross-validation folds over the development rows: K (2 or more) or `loo`.
-    #[arg(long, value_name = "K")]
+    /// Cross-validation folds over the development rows: K (2 or more), `loo`, `purged:K` or `cpcv:N,K` (the last two with --order-by).
+    #[arg(long, value_name = "K", conflicts_with = "window")]
     folds: Option<String>,
+    /// Time-ordered folds as windows over the development rows: `sliding:N` (N training rows) or `expanding:N` (at least N); with --test-size, --step, --window-gap.
+    #[arg(long, value_name = "KIND:N", requires = "test_size")]
+    window: Option<String>,
+    /// With --window: rows validated per split.
+    #[arg(long, value_name = "N", requires = "window")]
+    test_size: Option<u64>,
+    /// With --window: rows from one split's start to the next (default: --test-size).
+    #[arg(long, value_name = "N", requires = "window")]
+    step: Option<u64>,
+    /// With --window: rows left out between training and validation (default 0).
+    #[arg(long, value_name = "N", requires = "window", default_value_t = 0)]
+    window_gap: u64,
+    /// Where each row's label interval ends (a time column like --order-by): purged designs and the partitions' gap use it.
+    #[arg(long, value_name = "COL", requires = "order_by")]
+    until: Option<String>,
+    /// With --folds purged:K or cpcv:N,K: leave out training rows starting within this after a validated block (7d, 36h; a number for integers).
+    #[arg(long, value_name = "DURATION")]
+    embargo: Option<String>,
     /// Name of the fold column added to the development partitions.
     #[arg(long, default_value = "fold", value_name = "NAME")]
     fold_column: String,
@@ -87,6 +105,26 @@ pub struct Args {
     json: bool,
 }
 
+/// `--window sliding:N` or `expanding:N` with its sizes, as a fold design
+/// and its text for the manifest (`sliding:TRAIN,TEST,STEP,GAP`).
+fn parse_window(text: &str, test: u64, step: Option<u64>, gap: u64) -> anyhow::Result<(FoldCount, String)> {
+    let bad =
+        || crate::Error::Options(format!("--window `{text}` is not `sliding:N` or `expanding:N` (N training rows)"));
+    let (kind, n) = text.split_once(':').ok_or_else(bad)?;
+    let expanding = match kind {
+        "sliding" => false,
+        "expanding" => true,
+        _ => return Err(bad().into()),
+    };
+    let train: u64 = n.parse().map_err(|_| bad())?;
+    let step = step.unwrap_or(test);
+    if train == 0 || test == 0 || step == 0 {
+        return Err(crate::Error::Options("--window, --test-size and --step need at least one row each".into()).into());
+    }
+    let w = split::Window { expanding, train, test, step, gap };
+    Ok((FoldCount::Window(w), format!("{kind}:{train},{test},{step},{gap}")))
+}
+
 fn parse_min_share(s: &str) -> Result<f64, String> {
     match s.parse::<f64>() {
         Ok(v) if (0.0..=1.0).contains(&v) => Ok(v),
@@ -110,7 +148,11 @@ fn parse_compression(s: &str) -> Result<(parquet::basic::Compression, String), c
 pub fn run(args: Args) -> anyhow::Result<Outcome> {
     crate::interrupt::install();
     let ratios = Ratios::parse(&args.ratios)?;
-    let folds = args.folds.as_deref().map(|f| FoldCount::parse(f).map(|c| (c, f.to_string()))).transpose()?;
+    let folds = match (&args.window, args.folds.as_deref()) {
+        (Some(w), _) => Some(parse_window(w, args.test_size.unwrap_or(0), args.step, args.window_gap)?),
+        (None, Some(f)) => Some((FoldCount::parse(f)?, f.to_string())),
+        (None, None) => None,
+    };
     let cfg = SplitConfig {
         input: args.input.clone(),
         format: args.format,
@@ -130,6 +172,8 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         group: args.group,
         order_by: args.order_by,
         gap: args.gap,
+        until: args.until,
+        embargo: args.embargo,
         stable: args.stable,
         allow_null_label: args.allow_null_label,
         min_share: args.min_share,
@@ -194,12 +238,14 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         ));
     }
     if let Some(f) = &m.folds {
-        text.push_str(&format!(
-            "  {} folds ({}) in column `{}` of the development partitions\n",
-            f.k,
-            f.kind.name(),
-            f.column
-        ));
+        let column = f.column.as_ref().map(|c| format!(" in column `{c}`")).unwrap_or_default();
+        text.push_str(&format!("  {} folds ({}){column} of the development partitions\n", f.k, f.kind.name()));
+        if let (Some(first), Some(last)) = (f.membership.first(), f.membership.last()) {
+            text.push_str(&format!(
+                "  {} splits, each a column of train / validate / out: `{first}` to `{last}`\n",
+                f.membership.len()
+            ));
+        }
     }
     text.push_str(&format!("sealed the test partition: {}\n", crate::seal::manifest::FILE_NAME));
     text.push_str(&format!("seal identity (manifest checksum): {}\n", outcome.manifest_checksum));

@@ -273,6 +273,10 @@ pub struct OrderRecord {
     /// (microseconds since the epoch for times and dates): what `check`
     /// compares against.
     pub test_start: i64,
+    /// The column where each row's label interval ends (`--until`): `check`
+    /// then compares a row's end, not its start.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub until: Option<String>,
 }
 
 /// The groups of a grouped split.
@@ -296,19 +300,56 @@ pub struct GroupRecord {
 pub struct FoldRecord {
     /// How they were made.
     pub kind: crate::seal::manifest::FoldKind,
-    /// Number of folds.
+    /// Number of folds (of blocks for purged and combinatorial designs, of
+    /// splits for windows).
     pub k: u32,
-    /// The column holding each development row's fold.
-    pub column: String,
-    /// Rolling origin: the blocks, 0..k, each with its rows and time range.
+    /// The column holding each development row's fold or block (none for
+    /// windows, where a row may be validated in several splits or none).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub column: Option<String>,
+    /// Time designs: the blocks, each with its rows and time range.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub blocks: Vec<BlockRecord>,
+    /// The membership columns, one per split: `train`, `validate` or `out`
+    /// for every development row (none for leave-one-out).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub membership: Vec<String>,
+    /// Every split: what it validates and how many rows train, are
+    /// validated and are left out.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub splits: Vec<FoldSplitRecord>,
+    /// Combinatorial purged: per path, the split used for each block.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub paths: Vec<Vec<u32>>,
+    /// The label intervals' end column (`--until`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub until: Option<String>,
+    /// The embargo as given.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub embargo: Option<String>,
     /// Stratified folds: rows per fold of each stratum.
     #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
     pub strata: BTreeMap<String, Vec<u64>>,
 }
 
-/// One rolling-origin block.
+/// One split of a fold design.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct FoldSplitRecord {
+    /// Split number (its membership column is the fold column's name, `_`, and this).
+    pub split: u32,
+    /// The blocks or folds it validates (empty for windows).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub validates: Vec<u32>,
+    /// Development rows that train.
+    pub train: u64,
+    /// Development rows validated.
+    pub validate: u64,
+    /// Development rows left out (gap, purging, embargo, outside the window).
+    pub out: u64,
+}
+
+/// One time block.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct BlockRecord {
@@ -670,6 +711,14 @@ pub enum FoldKind {
     LeaveOneOut,
     /// Rolling-origin blocks in time order.
     RollingOrigin,
+    /// Purged k-fold: time blocks, each validated once, purged and embargoed.
+    Purged,
+    /// Combinatorial purged cross-validation.
+    CombinatorialPurged,
+    /// Sliding windows in time order.
+    SlidingWindow,
+    /// Expanding windows in time order.
+    ExpandingWindow,
 }
 
 impl FoldKind {
@@ -681,6 +730,10 @@ impl FoldKind {
             FoldKind::Grouped => "grouped k-fold",
             FoldKind::LeaveOneOut => "leave-one-out",
             FoldKind::RollingOrigin => "rolling origin",
+            FoldKind::Purged => "purged k-fold",
+            FoldKind::CombinatorialPurged => "combinatorial purged",
+            FoldKind::SlidingWindow => "sliding window",
+            FoldKind::ExpandingWindow => "expanding window",
         }
     }
 }

@@ -141,7 +141,7 @@ pub fn verify(path: &Path, pin: Option<&str>, key: Option<&DigestKey>, depth: De
     let seal_files: Vec<&manifest::SealFile> = m.seal.files.iter().filter(|f| !shareable || f.shareable).collect();
     // The fold column, which only train and validation files hold.
     let fold_column = |part: &manifest::PartitionRecord| {
-        m.folds.as_ref().filter(|_| part.name != Partition::Test).map(|f| f.column.as_str())
+        m.folds.as_ref().filter(|_| part.name != Partition::Test).and_then(|f| f.column.as_deref())
     };
     let digest = |part: &manifest::PartitionRecord| {
         let is_test = part.name == Partition::Test;

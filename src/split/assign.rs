@@ -30,6 +30,8 @@ pub(super) struct Assignment {
     pub(super) totals: Vec<u64>,
     /// Every row's fold ([`super::NO_FOLD`] outside them), their kind and count.
     pub(super) folds: Option<(Vec<u32>, FoldKind, u32)>,
+    /// Every split's explicit membership (none for leave-one-out).
+    pub(super) membership: Option<folds::Membership>,
     /// Strata too small to reach every partition.
     pub(super) short: Vec<ShortStratum>,
     /// Warnings for the user (one line for all short strata).
@@ -59,7 +61,7 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
     };
     let mut time_plan = None;
     let partition: Vec<u8> = if let Some((times, _)) = &facts.times {
-        let plan = structure::assign_time(times, facts.groups.as_ref(), &cfg.ratios, gap)?;
+        let plan = structure::assign_time(times, facts.ends.as_deref(), facts.groups.as_ref(), &cfg.ratios, gap)?;
         let p = plan.partition.clone();
         time_plan = Some(plan);
         p
@@ -87,11 +89,30 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
     }
     refuse_far_shares(cfg, facts, &totals, time_plan.as_ref())?;
     let test_index = k - 1;
+    let mut membership = None;
     let folds = match &cfg.folds {
         Some((count, _)) => {
             let dev: Vec<bool> = partition.iter().map(|&p| p != DROPPED && (p as usize) < test_index).collect();
             let times = facts.times.as_ref().map(|(t, _)| t.as_slice());
-            Some(folds::assign(&dev, *count, strata, facts.groups.as_ref(), times, cfg.seed)?)
+            let (fold, kind, k) = folds::assign(&dev, *count, strata, facts.groups.as_ref(), times, cfg.seed)?;
+            let embargo = match (&cfg.embargo, &facts.times) {
+                (Some(e), Some((_, kind))) => parse_gap(e, *kind)?,
+                _ => 0,
+            };
+            let intervals = times.map(|start| folds::Intervals { start, end: facts.ends.as_deref(), gap, embargo });
+            Some(match count {
+                folds::FoldCount::Window(w) => {
+                    let m = folds::windows(&dev, times.expect("windows have times"), *w)?;
+                    let kind = if w.expanding { FoldKind::ExpandingWindow } else { FoldKind::SlidingWindow };
+                    let splits = m.status.len() as u32;
+                    membership = Some(m);
+                    (fold, kind, splits)
+                }
+                _ => {
+                    membership = folds::membership(*count, kind, &fold, k, intervals);
+                    (fold, kind, k)
+                }
+            })
         }
         None => None,
     };
@@ -110,7 +131,7 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
         }
     }
     let warnings = short_warning(&short, &partitions).into_iter().collect();
-    Ok(Assignment { partitions, partition, time_plan, gap, counts, totals, folds, short, warnings })
+    Ok(Assignment { partitions, partition, time_plan, gap, counts, totals, folds, membership, short, warnings })
 }
 
 /// Refuses an assignment in which a partition ends with less than

@@ -49,6 +49,11 @@ pub struct SplitConfig {
     pub order_by: Option<String>,
     /// The gap, as given (`7d`, `36h`, or a number for integer order columns).
     pub gap: Option<String>,
+    /// The column where each row's label interval ends (`--until`); the
+    /// order column is where it starts.
+    pub until: Option<String>,
+    /// The embargo after each validated block of a purged design, as given.
+    pub embargo: Option<String>,
     /// Stable, hash-based assignment.
     pub stable: bool,
     /// Keep rows whose label is null (counted in the manifest, left out of
@@ -126,8 +131,15 @@ pub(super) fn open(cfg: &SplitConfig) -> Result<Opened> {
     let source_hash = io::HashingThread::start(&cfg.input);
     // CSV: the type-inference pass also keeps the columns pass one needs,
     // so the file is read twice in all, not three times.
-    let mut pass_one_columns: Vec<String> =
-        cfg.stratify.iter().chain(&cfg.group).chain(&cfg.order_by).chain(&cfg.label).cloned().collect();
+    let mut pass_one_columns: Vec<String> = cfg
+        .stratify
+        .iter()
+        .chain(&cfg.group)
+        .chain(&cfg.order_by)
+        .chain(&cfg.until)
+        .chain(&cfg.label)
+        .cloned()
+        .collect();
     pass_one_columns.sort();
     pass_one_columns.dedup();
     let keep = (format == Format::Csv && !(cfg.stable && cfg.group.is_empty())).then_some(pass_one_columns.as_slice());
@@ -137,8 +149,23 @@ pub(super) fn open(cfg: &SplitConfig) -> Result<Opened> {
     let label = resolve_columns(&table, &cfg.label)?;
     let stratify = resolve_columns(&table, &cfg.stratify)?;
     let group = resolve_columns(&table, &cfg.group)?;
-    if let Some(o) = &cfg.order_by {
+    for o in cfg.order_by.iter().chain(&cfg.until) {
         table.column_index(o)?;
+    }
+    if let Some((_, text)) = &cfg.folds {
+        let splits = match cfg.folds.as_ref().map(|f| f.0) {
+            Some(FoldCount::K(k)) | Some(FoldCount::Purged(k)) => k as usize,
+            Some(FoldCount::Cpcv { n, k }) => super::folds::binomial(n, k) as usize,
+            _ => 0,
+        };
+        for s in 0..splits.max(if text.starts_with("sliding") || text.starts_with("expanding") { 1 } else { 0 }) {
+            let name = format!("{}_{s}", cfg.fold_column);
+            if schema.index_of(&name).is_ok() {
+                return Err(Error::Options(format!(
+                    "the input already has a column `{name}`, a name the membership columns need; name them otherwise with --fold-column"
+                )));
+            }
+        }
     }
     let mut key = match &cfg.key {
         Some(k) => resolve_columns(&table, k)?,
@@ -217,6 +244,17 @@ pub(super) fn check_combinations(cfg: &SplitConfig) -> Result<()> {
     }
     if cfg.stable && cfg.order_by.is_some() {
         return refuse("--stable with --order-by cannot be honoured: time order, not a hash, decides the partitions");
+    }
+    if cfg.until.is_some() && cfg.order_by.is_none() {
+        return refuse("--until needs --order-by: a label interval runs from the order column to --until");
+    }
+    if cfg.embargo.is_some() && !matches!(cfg.folds, Some((FoldCount::Purged(_) | FoldCount::Cpcv { .. }, _))) {
+        return refuse("--embargo applies to purged designs: --folds purged:K or cpcv:N,K");
+    }
+    if let Some((count, _)) = &cfg.folds {
+        if count.needs_time() && cfg.order_by.is_none() {
+            return refuse("this fold design is laid out in time: give --order-by");
+        }
     }
     if cfg.bins < 2 {
         return Err(Error::Options(format!("--bins must be at least 2, got {}", cfg.bins)));

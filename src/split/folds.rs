@@ -22,30 +22,331 @@ use crate::rng::SplitRng;
 use crate::seal::manifest::FoldKind;
 use crate::split::structure::Groups;
 
-/// How many folds.
+/// The fold design: how many folds, of which kind.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum FoldCount {
     /// k folds.
     K(u32),
     /// Leave-one-out: one fold per row or group.
     LeaveOneOut,
+    /// Purged k-fold (with `--order-by`): k consecutive time blocks, each
+    /// validated once, trained on every other block less the rows whose
+    /// label interval overlaps the validated one, and the embargo.
+    Purged(u32),
+    /// Combinatorial purged cross-validation: n time blocks, every choice of
+    /// k of them validated once (Lopez de Prado 2018, ch. 12).
+    Cpcv {
+        /// Blocks.
+        n: u32,
+        /// Blocks validated per split.
+        k: u32,
+    },
+    /// Windows in time order (`--window`).
+    Window(Window),
+}
+
+/// A window design over the development rows in time order, in rows.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Window {
+    /// Expanding (training from the first row) rather than sliding.
+    pub expanding: bool,
+    /// Training rows (sliding), or the first split's (expanding).
+    pub train: u64,
+    /// Validated rows per split.
+    pub test: u64,
+    /// Rows from one split's start to the next one's.
+    pub step: u64,
+    /// Rows left out between training and validation.
+    pub gap: u64,
 }
 
 impl FoldCount {
-    /// Parses `--folds`: an integer of at least 2, or `loo`.
+    /// Parses `--folds`: an integer of at least 2, `loo`, `purged:K` or
+    /// `cpcv:N,K`.
     ///
     /// # Errors
     /// Anything else.
     pub fn parse(text: &str) -> Result<FoldCount> {
+        let count = |t: &str, what: &str| -> Result<u32> {
+            match t.trim().parse::<u32>() {
+                Ok(k) if k >= 2 => Ok(k),
+                Ok(k) => Err(Error::Options(format!("--folds {text}: {what} needs at least 2, got {k}"))),
+                Err(_) => Err(Error::Options(format!("--folds {text}: `{t}` is not a number"))),
+            }
+        };
         if text.eq_ignore_ascii_case("loo") {
             return Ok(FoldCount::LeaveOneOut);
+        }
+        if let Some(k) = text.strip_prefix("purged:") {
+            return Ok(FoldCount::Purged(count(k, "purged k-fold")?));
+        }
+        if let Some(nk) = text.strip_prefix("cpcv:") {
+            let (n, k) = nk.split_once(',').ok_or_else(|| {
+                Error::Options(format!("--folds {text}: cpcv takes N,K (blocks, blocks validated per split)"))
+            })?;
+            let n = count(n, "cpcv's number of blocks")?;
+            let k: u32 =
+                k.trim().parse().map_err(|_| Error::Options(format!("--folds {text}: `{k}` is not a number")))?;
+            if k == 0 || k >= n {
+                return Err(Error::Options(format!("--folds {text}: K must be at least 1 and less than N")));
+            }
+            if binomial(n, k) > MAX_SPLITS as u64 {
+                return Err(Error::Options(format!(
+                    "--folds {text}: {} splits; at most {MAX_SPLITS} are written",
+                    binomial(n, k)
+                )));
+            }
+            return Ok(FoldCount::Cpcv { n, k });
         }
         match text.parse::<u32>() {
             Ok(k) if k >= 2 => Ok(FoldCount::K(k)),
             Ok(k) => Err(Error::Options(format!("--folds {k}: cross-validation needs at least 2 folds"))),
-            Err(_) => Err(Error::Options(format!("--folds `{text}` is not a number of folds (2 or more) or `loo`"))),
+            Err(_) => Err(Error::Options(format!(
+                "--folds `{text}` is not a number of folds (2 or more), `loo`, `purged:K` or `cpcv:N,K`"
+            ))),
         }
     }
+
+    /// Whether the design needs `--order-by`.
+    pub fn needs_time(self) -> bool {
+        matches!(self, FoldCount::Purged(_) | FoldCount::Cpcv { .. } | FoldCount::Window(_))
+    }
+}
+
+/// Splits (and so membership columns) a design may have.
+pub const MAX_SPLITS: usize = 256;
+
+/// n choose k.
+pub fn binomial(n: u32, k: u32) -> u64 {
+    (0..k as u64).fold(1u64, |acc, i| acc.saturating_mul(n as u64 - i) / (i + 1))
+}
+
+/// The name of split `i`'s membership column.
+pub fn membership_column(fold_column: &str, i: usize) -> String {
+    format!("{fold_column}_{i}")
+}
+
+/// A row's part in one split of a fold design.
+pub const OUT: u8 = 0;
+/// Trains in the split.
+pub const TRAIN: u8 = 1;
+/// Is validated in the split.
+pub const VALIDATE: u8 = 2;
+
+/// The explicit membership of every split of a fold design: which
+/// development rows train, which are validated, which are left out (by the
+/// gap, purging or the embargo).
+pub struct Membership {
+    /// Per split, every row's part ([`OUT`] for rows outside development).
+    pub status: Vec<Vec<u8>>,
+    /// Per split, the blocks or folds it validates (empty for windows).
+    pub validates: Vec<Vec<u32>>,
+    /// CPCV: per path, for each block, the split whose validation of it
+    /// the path uses.
+    pub paths: Vec<Vec<u32>>,
+}
+
+/// Time intervals of the rows: start (the order column) and, with
+/// `--until`, end; the gap and embargo in the column's units.
+#[derive(Clone, Copy)]
+pub struct Intervals<'a> {
+    /// Every row's start.
+    pub start: &'a [i64],
+    /// Every row's end (`None`: the start).
+    pub end: Option<&'a [i64]>,
+    /// Rows of earlier blocks with end > a validated start - gap are out.
+    pub gap: i64,
+    /// Training rows starting within this after a validated block's end are out.
+    pub embargo: i64,
+}
+
+impl Intervals<'_> {
+    fn end(&self, row: usize) -> i64 {
+        self.end.map_or(self.start[row], |e| e[row])
+    }
+}
+
+/// The membership of a design whose every row validates in one block or
+/// fold (`fold[row]`): k-fold and its kinds, rolling origin, purged k-fold
+/// and CPCV. `None` for leave-one-out (its fold column says all).
+pub fn membership(
+    count: FoldCount,
+    kind: FoldKind,
+    fold: &[u32],
+    k: u32,
+    intervals: Option<Intervals<'_>>,
+) -> Option<Membership> {
+    let n = fold.len();
+    let mut out = Membership { status: Vec::new(), validates: Vec::new(), paths: Vec::new() };
+    match (count, kind) {
+        (_, FoldKind::LeaveOneOut) => return None,
+        (_, FoldKind::RollingOrigin) => {
+            let iv = intervals.expect("rolling origin has times");
+            let starts = block_starts(fold, k as usize + 1, iv.start);
+            for b in 1..=k {
+                let s = starts[b as usize];
+                let status = (0..n)
+                    .map(|r| match fold[r] {
+                        NO_FOLD => OUT,
+                        f if f == b => VALIDATE,
+                        f if f < b && iv.end(r) < s && iv.end(r) <= s.saturating_sub(iv.gap) => TRAIN,
+                        _ => OUT,
+                    })
+                    .collect();
+                out.status.push(status);
+                out.validates.push(vec![b]);
+            }
+        }
+        (FoldCount::Purged(_), _) => {
+            let iv = intervals.expect("purged folds have times");
+            for b in 0..k {
+                out.status.push(purged(fold, &[b], iv));
+                out.validates.push(vec![b]);
+            }
+        }
+        (FoldCount::Cpcv { n: blocks, k: chosen }, _) => {
+            let iv = intervals.expect("cpcv has times");
+            for set in combinations(blocks, chosen) {
+                out.status.push(purged(fold, &set, iv));
+                out.validates.push(set);
+            }
+            // Path j takes, for every block, the j-th split that validates it.
+            let per_block = binomial(blocks - 1, chosen - 1) as usize;
+            out.paths = (0..per_block)
+                .map(|j| {
+                    (0..blocks)
+                        .map(|g| {
+                            let s = out.validates.iter().enumerate().filter(|(_, v)| v.contains(&g)).nth(j);
+                            s.expect("each block validated in C(n-1, k-1) splits").0 as u32
+                        })
+                        .collect()
+                })
+                .collect();
+        }
+        _ => {
+            for f in 0..k {
+                out.status.push(
+                    fold.iter()
+                        .map(|&x| {
+                            if x == NO_FOLD {
+                                OUT
+                            } else if x == f {
+                                VALIDATE
+                            } else {
+                                TRAIN
+                            }
+                        })
+                        .collect(),
+                );
+                out.validates.push(vec![f]);
+            }
+        }
+    }
+    Some(out)
+}
+
+/// Every k-subset of 0..n in lexicographic order.
+fn combinations(n: u32, k: u32) -> Vec<Vec<u32>> {
+    let mut out = Vec::new();
+    let mut c: Vec<u32> = (0..k).collect();
+    loop {
+        out.push(c.clone());
+        let Some(i) = (0..k as usize).rev().find(|&i| c[i] < n - k + i as u32) else { return out };
+        c[i] += 1;
+        for j in i + 1..k as usize {
+            c[j] = c[j - 1] + 1;
+        }
+    }
+}
+
+/// The earliest start of each block.
+fn block_starts(fold: &[u32], blocks: usize, start: &[i64]) -> Vec<i64> {
+    let mut s = vec![i64::MAX; blocks];
+    for (r, &f) in fold.iter().enumerate() {
+        if f != NO_FOLD {
+            s[f as usize] = s[f as usize].min(start[r]);
+        }
+    }
+    s
+}
+
+/// One split validating `blocks`: the other development rows train, less
+/// those whose interval [start, end] meets a validated block's interval
+/// (purging, Lopez de Prado 2018, 7.4.1) and those starting within the
+/// embargo after a validated block's end (7.4.2).
+fn purged(fold: &[u32], blocks: &[u32], iv: Intervals<'_>) -> Vec<u8> {
+    // Each validated block's interval: its earliest start, its latest end.
+    let spans: Vec<(i64, i64)> = blocks
+        .iter()
+        .map(|&b| {
+            let rows = fold.iter().enumerate().filter(|(_, &f)| f == b).map(|(r, _)| r);
+            rows.fold((i64::MAX, i64::MIN), |(lo, hi), r| (lo.min(iv.start[r]), hi.max(iv.end(r))))
+        })
+        .collect();
+    (0..fold.len())
+        .map(|r| {
+            let f = fold[r];
+            if f == NO_FOLD {
+                return OUT;
+            }
+            if blocks.contains(&f) {
+                return VALIDATE;
+            }
+            let (s, e) = (iv.start[r], iv.end(r));
+            let meets = spans.iter().any(|&(lo, hi)| s <= hi && e >= lo);
+            let embargoed = iv.embargo > 0 && spans.iter().any(|&(_, hi)| s > hi && s <= hi.saturating_add(iv.embargo));
+            if meets || embargoed {
+                OUT
+            } else {
+                TRAIN
+            }
+        })
+        .collect()
+}
+
+/// The splits of a window design over the development rows in time order
+/// (ties by row): split i trains on rows [a, b) and validates [b + gap,
+/// b + gap + test), with a = i * step (sliding) or 0 (expanding) and
+/// b = train + i * step; splits stop where validation would pass the last row.
+///
+/// # Errors
+/// Fewer development rows than one split needs, or more splits than are written.
+pub fn windows(dev: &[bool], times: &[i64], w: Window) -> Result<Membership> {
+    let mut order: Vec<u32> = (0..dev.len() as u32).filter(|&r| dev[r as usize]).collect();
+    order.sort_by_key(|&r| (times[r as usize], r));
+    let m = order.len() as u64;
+    let mut out = Membership { status: Vec::new(), validates: Vec::new(), paths: Vec::new() };
+    let mut i = 0u64;
+    loop {
+        let b = w.train + i * w.step;
+        let a = if w.expanding { 0 } else { i * w.step };
+        let (v0, v1) = (b + w.gap, b + w.gap + w.test);
+        if v1 > m {
+            break;
+        }
+        if out.status.len() == MAX_SPLITS {
+            return Err(Error::Options(format!("--window: more than {MAX_SPLITS} splits; take a larger --step")));
+        }
+        let mut status = vec![OUT; dev.len()];
+        for (pos, &r) in order.iter().enumerate() {
+            let pos = pos as u64;
+            if (a..b).contains(&pos) {
+                status[r as usize] = TRAIN;
+            } else if (v0..v1).contains(&pos) {
+                status[r as usize] = VALIDATE;
+            }
+        }
+        out.status.push(status);
+        out.validates.push(Vec::new());
+        i += 1;
+    }
+    if out.status.is_empty() {
+        return Err(Error::Options(format!(
+            "--window: {m} development rows are fewer than one split needs ({} to train, {} gap, {} to validate)",
+            w.train, w.gap, w.test
+        )));
+    }
+    Ok(out)
 }
 
 /// Fold of every row: `u32::MAX` for rows outside the development set.
@@ -82,7 +383,20 @@ pub fn assign(
         }
         None => dev_rows.len(),
     };
+    if count.needs_time() && times.is_none() {
+        return Err(Error::Options("this fold design is laid out in time: give --order-by".into()));
+    }
     let k = match count {
+        FoldCount::Window(_) => return Ok((vec![NO_FOLD; n], FoldKind::SlidingWindow, 0)),
+        FoldCount::Purged(k) | FoldCount::Cpcv { n: k, .. } => {
+            if k as usize > units {
+                return Err(Error::Options(format!(
+                    "--folds: {k} time blocks but only {units} development {}",
+                    if groups.is_some() { "groups" } else { "rows" }
+                )));
+            }
+            k
+        }
         FoldCount::K(k) => {
             if k as usize > units {
                 return Err(Error::Options(format!(
@@ -102,7 +416,7 @@ pub fn assign(
         }
     };
     if let Some(times) = times {
-        // Rolling origin over k + 1 blocks.
+        // Time blocks: k + 1 for rolling origin, k for purged and combinatorial designs.
         let mut order = dev_rows.clone();
         match groups {
             None => order.sort_by_key(|&r| (times[r as usize], r)),
@@ -119,7 +433,11 @@ pub fn assign(
                 });
             }
         }
-        let blocks = k as usize + 1;
+        let (blocks, kind) = match count {
+            FoldCount::Purged(_) => (k as usize, FoldKind::Purged),
+            FoldCount::Cpcv { .. } => (k as usize, FoldKind::CombinatorialPurged),
+            _ => (k as usize + 1, FoldKind::RollingOrigin),
+        };
         if blocks > units {
             return Err(Error::Options(format!(
                 "--folds {k} with --order-by needs {blocks} time blocks, but there are only {units} development units"
@@ -151,7 +469,7 @@ pub fn assign(
                 "--folds {k} with --order-by: equal times leave only {used} of {blocks} time blocks"
             )));
         }
-        return Ok((fold, FoldKind::RollingOrigin, k));
+        return Ok((fold, kind, k));
     }
     if let Some(g) = groups {
         // Groups in the development set, with their rows per stratum.
@@ -259,6 +577,60 @@ mod tests {
     use proptest::prelude::*;
     use std::collections::HashMap;
 
+    // Combinatorial purged cross-validation with N = 6 blocks, K = 2
+    // validated per split (Lopez de Prado 2018, 12.4): C(6, 2) = 15 splits,
+    // every block validated in C(5, 1) = 5 of them, and 15 * 2 / 6 = 5 paths,
+    // each using every block once.
+    #[test]
+    fn cpcv_six_two_has_fifteen_splits_and_five_paths() {
+        let times: Vec<i64> = (0..60).collect();
+        let dev = vec![true; 60];
+        let count = FoldCount::parse("cpcv:6,2").unwrap();
+        let (fold, kind, k) = assign(&dev, count, &crate::split::strata::single(60), None, Some(&times), 0).unwrap();
+        assert_eq!((kind, k), (FoldKind::CombinatorialPurged, 6));
+        let m = membership(count, kind, &fold, k, Some(Intervals { start: &times, end: None, gap: 0, embargo: 0 }))
+            .unwrap();
+        assert_eq!(m.status.len(), 15);
+        for b in 0..6 {
+            assert_eq!(m.validates.iter().filter(|v| v.contains(&b)).count(), 5, "block {b}");
+        }
+        assert_eq!(m.paths.len(), 5);
+        for path in &m.paths {
+            for (b, &s) in path.iter().enumerate() {
+                assert!(m.validates[s as usize].contains(&(b as u32)));
+            }
+        }
+        // Every (block, split) validation is used by exactly one path.
+        let mut used: Vec<(usize, u32)> = m.paths.iter().flat_map(|p| p.iter().copied().enumerate()).collect();
+        used.sort();
+        used.dedup();
+        assert_eq!(used.len(), 30);
+    }
+
+    // Sliding windows over rows 0..19, train 7, test 4, gap 2, step 3:
+    // [0-6 | 9-12], [3-9 | 12-15], [6-12 | 15-18] (a worked example from a
+    // public discussion of time-series splitters, from memory).
+    #[test]
+    fn sliding_windows_worked_example() {
+        let times: Vec<i64> = (0..20).collect();
+        let w = Window { expanding: false, train: 7, test: 4, step: 3, gap: 2 };
+        let m = windows(&[true; 20], &times, w).unwrap();
+        let ranges: Vec<((i64, i64), (i64, i64))> = m
+            .status
+            .iter()
+            .map(|st| {
+                let of = |want| {
+                    let rows: Vec<i64> = (0..20).filter(|&r| st[r] == want).map(|r| r as i64).collect();
+                    (rows[0], *rows.last().unwrap())
+                };
+                (of(TRAIN), of(VALIDATE))
+            })
+            .collect();
+        assert_eq!(ranges, [((0, 6), (9, 12)), ((3, 9), (12, 15)), ((6, 12), (15, 18))]);
+        let grown = windows(&[true; 20], &times, Window { expanding: true, ..w }).unwrap();
+        assert_eq!(grown.status[2].iter().filter(|&&s| s == TRAIN).count(), 13, "expanding: rows 0 to 12");
+    }
+
     use crate::digest::RowDigest;
 
     fn strata(classes: &[u32]) -> Strata {
@@ -359,6 +731,53 @@ mod tests {
                 let validate_min = times.iter().zip(&fold).filter(|(_, &f)| f == i).map(|(t, _)| *t).min().unwrap();
                 let train_max = times.iter().zip(&fold).filter(|(_, &f)| f < i).map(|(t, _)| *t).max().unwrap();
                 prop_assert!(train_max < validate_min, "fold {}: trains up to {}, validates from {}", i, train_max, validate_min);
+            }
+        }
+
+        // Purging (Lopez de Prado 2018, "Advances in Financial Machine
+        // Learning", 7.4.1): no training interval meets the interval of a
+        // block its split validates, and every development row is in exactly
+        // one of train, validate and out in every split.
+        #[test]
+        fn purged_training_never_meets_a_validated_interval(
+            rows in proptest::collection::vec((0i64..200, 0i64..15), 12..120),
+            k in 2u32..5,
+            embargo in 0i64..6,
+        ) {
+            let start: Vec<i64> = rows.iter().map(|r| r.0).collect();
+            let end: Vec<i64> = rows.iter().map(|r| r.0 + r.1).collect();
+            let dev = vec![true; rows.len()];
+            let single = crate::split::strata::single(rows.len() as u64);
+            let Ok((fold, kind, kk)) = assign(&dev, FoldCount::Purged(k), &single, None, Some(&start), 0) else { return Ok(()); };
+            prop_assert_eq!(kind, FoldKind::Purged);
+            let iv = Intervals { start: &start, end: Some(&end), gap: 0, embargo };
+            let m = membership(FoldCount::Purged(k), kind, &fold, kk, Some(iv)).unwrap();
+            prop_assert_eq!(m.status.len(), k as usize);
+            for (s, status) in m.status.iter().enumerate() {
+                let validated: Vec<usize> = (0..rows.len()).filter(|&r| status[r] == VALIDATE).collect();
+                prop_assert!(validated.iter().all(|&r| fold[r] == s as u32));
+                let lo = validated.iter().map(|&r| start[r]).min().unwrap();
+                let hi = validated.iter().map(|&r| end[r]).max().unwrap();
+                for r in (0..rows.len()).filter(|&r| status[r] == TRAIN) {
+                    prop_assert!(end[r] < lo || start[r] > hi, "split {}: row [{}, {}] trains against [{}, {}]", s, start[r], end[r], lo, hi);
+                    prop_assert!(!(start[r] > hi && start[r] <= hi + embargo), "split {}: row starting {} in the embargo after {}", s, start[r], hi);
+                }
+            }
+        }
+
+        // Rolling origin through the membership columns: no split trains on
+        // a row later than a row it validates, with or without a gap.
+        #[test]
+        fn rolling_membership_never_trains_on_the_future(times in proptest::collection::vec(0i64..500, 20..200), k in 2u32..5, gap in 0i64..20) {
+            let dev = vec![true; times.len()];
+            let single = crate::split::strata::single(times.len() as u64);
+            let Ok((fold, kind, kk)) = assign(&dev, FoldCount::K(k), &single, None, Some(&times), 0) else { return Ok(()); };
+            let m = membership(FoldCount::K(k), kind, &fold, kk, Some(Intervals { start: &times, end: None, gap, embargo: 0 })).unwrap();
+            for status in &m.status {
+                let first_validated = (0..times.len()).filter(|&r| status[r] == VALIDATE).map(|r| times[r]).min().unwrap();
+                for r in (0..times.len()).filter(|&r| status[r] == TRAIN) {
+                    prop_assert!(times[r] < first_validated && times[r] <= first_validated - gap);
+                }
             }
         }
     }

@@ -31,7 +31,7 @@ mod strata;
 mod structure;
 
 pub use self::config::SplitConfig;
-pub use self::folds::FoldCount;
+pub use self::folds::{FoldCount, Window};
 use self::output::{OutputLock, Staging};
 pub use self::ratio::Ratios;
 use crate::error::Result;

@@ -23,6 +23,8 @@ pub(super) struct RowFacts {
     pub(super) groups: Option<Groups>,
     /// Every row's time, with `--order-by`.
     pub(super) times: Option<(Vec<i64>, TimeKind)>,
+    /// Every row's label interval end, with `--until`.
+    pub(super) ends: Option<Vec<i64>>,
     /// Row digests, for `--stable` without groups.
     pub(super) stable_keys: Option<Vec<RowDigest>>,
     /// Null values per label column (with `--allow-null-label`; without it
@@ -43,6 +45,7 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     let mut needed: Vec<String> = stratify.iter().map(|(n, _)| n.clone()).collect();
     needed.extend(group.iter().cloned());
     needed.extend(cfg.order_by.iter().cloned());
+    needed.extend(cfg.until.iter().cloned());
     needed.extend(opened.label.iter().cloned());
     needed.sort();
     needed.dedup();
@@ -59,6 +62,7 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     let mut group_seen = vec![false; group.len()];
     let mut times: Option<(Vec<i64>, Option<TimeKind>)> = cfg.order_by.as_ref().map(|_| (Vec::new(), None));
     let mut stable_keys = stable_rows.then(Vec::new);
+    let mut ends: Option<(Vec<i64>, Option<TimeKind>)> = cfg.until.as_ref().map(|_| (Vec::new(), None));
     // The rows come from the kept CSV text or from a reading pass.
     // Text columns of strata and of a one-column group key come as
     // dictionaries where the file has them: their values are encoded and
@@ -158,6 +162,20 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
         if let (Some(column), Some((values, kind))) = (&cfg.order_by, times.as_mut()) {
             *kind = Some(time_values(&cfg.input, &batch, column, values)?);
         }
+        if let (Some(column), Some((values, kind))) = (&cfg.until, ends.as_mut()) {
+            let before = values.len();
+            *kind = Some(time_values(&cfg.input, &batch, column, values)?);
+            if let Some((starts, _)) = times.as_ref() {
+                if let Some(i) = (before..values.len()).find(|&r| values[r] < starts[r]) {
+                    return Err(batch.error_at(
+                        &cfg.input,
+                        i - before,
+                        column,
+                        "ends before the label interval starts (the --order-by value)",
+                    ));
+                }
+            }
+        }
         if let Some(keys) = stable_keys.as_mut() {
             spec.bind(&cfg.input, &batch.data.schema())?.row_digests(&batch.data, keys)?;
         }
@@ -196,5 +214,15 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
         None => strata::single(rows),
     };
     let times = times.map(|(v, k)| (v, k.unwrap_or(TimeKind::Integer)));
-    Ok(RowFacts { rows, strata, groups, times, stable_keys, null_labels })
+    if let (Some((_, Some(end_kind))), Some((_, kind))) = (&ends, &times) {
+        if end_kind != kind {
+            return Err(Error::column(
+                &cfg.input,
+                cfg.until.as_deref().unwrap_or_default(),
+                format!("holds {end_kind:?} values but the order column {kind:?} values; --until needs the same kind"),
+            ));
+        }
+    }
+    let ends = ends.map(|(v, _)| v);
+    Ok(RowFacts { rows, strata, groups, times, ends, stable_keys, null_labels })
 }

@@ -8,7 +8,7 @@ use std::collections::BTreeMap;
 use std::path::Path;
 use std::sync::Arc;
 
-use arrow_array::{ArrayRef, Int64Array, RecordBatch, UInt32Array};
+use arrow_array::{ArrayRef, Int64Array, RecordBatch, StringArray, UInt32Array};
 use arrow_schema::{DataType, Field, Schema, SchemaRef};
 
 use super::assign::Assignment;
@@ -58,7 +58,23 @@ pub(super) fn write(
     let (partitions, partition, folds, totals) = (&plan.partitions, &plan.partition, &plan.folds, &plan.totals);
     let (rows, k, test_index) = (facts.rows, partitions.len(), plan.test_index());
     let raw_csv = opened.raw_csv();
-    let fold_schema = with_fold_column(schema, &cfg.fold_column);
+    // The development partitions' extra columns: the fold column (but for
+    // windows), then one membership column per split.
+    let single = folds.as_ref().is_some_and(|(_, kind, _)| {
+        !matches!(
+            kind,
+            crate::seal::manifest::FoldKind::SlidingWindow | crate::seal::manifest::FoldKind::ExpandingWindow
+        )
+    });
+    let membership = plan.membership.as_ref();
+    let mut extra_names: Vec<String> = Vec::new();
+    if single {
+        extra_names.push(cfg.fold_column.clone());
+    }
+    if let Some(m) = membership {
+        extra_names.extend((0..m.status.len()).map(|i| super::folds::membership_column(&cfg.fold_column, i)));
+    }
+    let fold_schema = with_fold_columns(schema, &extra_names, single);
     // Read once for every writer: the CSV header, the input's Parquet codec.
     let csv_header = if raw_csv { Some(table.csv_header()?) } else { None };
     let compression = match &cfg.compression {
@@ -72,8 +88,9 @@ pub(super) fn write(
         let has_folds = folds.is_some() && i < test_index;
         let header = csv_header.as_ref().map(|h| {
             if has_folds {
+                let names: Vec<&str> = extra_names.iter().map(String::as_str).collect();
                 let mut out = Vec::new();
-                append_csv_field(h, &cfg.fold_column, &mut out);
+                append_csv_fields(h, &names, &mut out);
                 out
             } else {
                 h.clone()
@@ -186,37 +203,68 @@ pub(super) fn write(
             if indices[p].is_empty() {
                 continue;
             }
-            let fold_of = |i: u32| folds.as_ref().filter(|_| p < test_index).map(|(f, _, _)| f[start + i as usize]);
+            let fold_of =
+                |i: u32| folds.as_ref().filter(|_| p < test_index && single).map(|(f, _, _)| f[start + i as usize]);
             for &i in &indices[p] {
                 if let Some(f) = fold_of(i) {
                     *fold_counts[p].entry(f).or_insert(0) += 1;
                 }
             }
+            let dev = folds.is_some() && p < test_index;
+            // A development row's extra values: its fold, then its part in every split.
+            let extras = |i: u32, out: &mut Vec<&'static str>, fold_text: &mut String| {
+                out.clear();
+                fold_text.clear();
+                if single {
+                    fold_text.push_str(&fold_of(i).expect("dev row").to_string());
+                }
+                if let Some(m) = membership {
+                    out.extend(m.status.iter().map(|st| status_name(st[start + i as usize])));
+                }
+            };
             if let Some(raw) = &batch.raw {
                 let mut bytes = Vec::with_capacity(raw.bytes.len() * indices[p].len() / n.max(1) + 64);
+                let (mut parts, mut fold_text) = (Vec::new(), String::new());
                 for &i in &indices[p] {
-                    match fold_of(i) {
-                        Some(f) => append_csv_field(raw.record(i as usize), &f.to_string(), &mut bytes),
-                        None => bytes.extend_from_slice(raw.record(i as usize)),
+                    if dev {
+                        extras(i, &mut parts, &mut fold_text);
+                        let mut values: Vec<&str> = Vec::with_capacity(parts.len() + 1);
+                        if single {
+                            values.push(&fold_text);
+                        }
+                        values.extend(parts.iter().copied());
+                        append_csv_fields(raw.record(i as usize), &values, &mut bytes);
+                    } else {
+                        bytes.extend_from_slice(raw.record(i as usize));
                     }
                 }
                 w.write_raw(bytes)?;
             } else {
                 let fold_values: Option<Vec<i64>> =
-                    fold_of(0).map(|_| indices[p].iter().map(|&i| fold_of(i).expect("dev row") as i64).collect());
+                    (dev && single).then(|| indices[p].iter().map(|&i| fold_of(i).expect("dev row") as i64).collect());
+                let status_values: Vec<Vec<&'static str>> = match membership.filter(|_| dev) {
+                    Some(m) => m
+                        .status
+                        .iter()
+                        .map(|st| indices[p].iter().map(|&i| status_name(st[start + i as usize])).collect())
+                        .collect(),
+                    None => Vec::new(),
+                };
                 let take = take_rows(&batch.data, std::mem::take(&mut indices[p]));
                 let (fold_schema, input) = (fold_schema.clone(), cfg.input.clone());
                 w.write_with(move || {
                     let part = take()?;
-                    match fold_values {
-                        None => Ok(part),
-                        Some(values) => {
-                            let mut columns = part.columns().to_vec();
-                            columns.push(Arc::new(Int64Array::from(values)));
-                            RecordBatch::try_new(fold_schema, columns)
-                                .map_err(|e| Error::malformed(&input, e.to_string()))
-                        }
+                    if !dev {
+                        return Ok(part);
                     }
+                    let mut columns = part.columns().to_vec();
+                    if let Some(values) = fold_values {
+                        columns.push(Arc::new(Int64Array::from(values)));
+                    }
+                    for values in status_values {
+                        columns.push(Arc::new(StringArray::from(values)));
+                    }
+                    RecordBatch::try_new(fold_schema, columns).map_err(|e| Error::malformed(&input, e.to_string()))
                 })?;
             }
         }
@@ -263,22 +311,38 @@ pub(super) fn write(
     Ok(Written { files, digests, shared_with_test, fold_counts, time_ranges, handoff, seal_files })
 }
 
-fn with_fold_column(schema: &SchemaRef, name: &str) -> SchemaRef {
+/// The input's schema with the development partitions' extra columns: the
+/// fold column first when `single`, then the membership columns (text).
+fn with_fold_columns(schema: &SchemaRef, names: &[String], single: bool) -> SchemaRef {
     let mut fields: Vec<Field> = schema.fields().iter().map(|f| f.as_ref().clone()).collect();
-    fields.push(Field::new(name, DataType::Int64, true));
+    for (i, name) in names.iter().enumerate() {
+        let t = if single && i == 0 { DataType::Int64 } else { DataType::Utf8 };
+        fields.push(Field::new(name, t, true));
+    }
     Arc::new(Schema::new_with_metadata(fields, schema.metadata().clone()))
 }
 
-/// Appends `,value` to a raw CSV record, before its line break.
-fn append_csv_field(record: &[u8], value: &str, out: &mut Vec<u8>) {
+/// A row's part in a split, as its membership column writes it.
+fn status_name(status: u8) -> &'static str {
+    match status {
+        super::folds::TRAIN => "train",
+        super::folds::VALIDATE => "validate",
+        _ => "out",
+    }
+}
+
+/// Appends `,value` for each value to a raw CSV record, before its line break.
+fn append_csv_fields(record: &[u8], values: &[&str], out: &mut Vec<u8>) {
     let body = record.strip_suffix(b"\n").unwrap_or(record);
     let (body, end): (&[u8], &[u8]) = match body.strip_suffix(b"\r") {
         Some(b) => (b, b"\r\n"),
         None => (body, b"\n"),
     };
     out.extend_from_slice(body);
-    out.push(b',');
-    crate::io::csv::write_field(out, value);
+    for v in values {
+        out.push(b',');
+        crate::io::csv::write_field(out, v);
+    }
     out.extend_from_slice(end);
 }
 

@@ -5,15 +5,15 @@ use std::collections::BTreeMap;
 
 use super::assign::{Assignment, LISTED_SHORT};
 use super::config::{Opened, SplitConfig};
-use super::folds::{FoldCount, NO_FOLD};
+use super::folds::{self, membership_column, FoldCount, NO_FOLD};
 use super::pass_one::RowFacts;
 use super::pass_two::Written;
 use super::DROPPED;
 use crate::digest;
 use crate::io::{ColumnType, FileSummary};
 use crate::seal::manifest::{
-    self, BlockRecord, ColumnRecord, DigestRecord, FoldKind, FoldRecord, GroupRecord, Manifest, OrderRecord, Partition,
-    PartitionRecord, SealRecord, Source, SplitOptionsRecord, StrataRecord, TimeRange, Tool,
+    self, BlockRecord, ColumnRecord, DigestRecord, FoldKind, FoldRecord, FoldSplitRecord, GroupRecord, Manifest,
+    OrderRecord, Partition, PartitionRecord, SealRecord, Source, SplitOptionsRecord, StrataRecord, TimeRange, Tool,
 };
 use crate::seal::time::format_time;
 
@@ -42,7 +42,7 @@ pub(super) fn record(
     mut written: Written,
     source_summary: FileSummary,
 ) -> Recorded {
-    let Assignment { partitions, partition, time_plan, gap, counts, short, mut warnings, folds, .. } = plan;
+    let Assignment { partitions, partition, time_plan, gap, counts, short, mut warnings, folds, membership, .. } = plan;
     let (stratify, group, key, label) = (&opened.stratify, &opened.group, &opened.key, &opened.label);
     let (format, output_format, spec, table) = (opened.format, opened.output_format, &opened.spec, &opened.table);
     let (rows, strata, k) = (facts.rows, &facts.strata, partitions.len());
@@ -123,9 +123,14 @@ pub(super) fn record(
     };
     let fold_record = folds.as_ref().map(|(fold, kind, kk)| {
         let mut blocks = Vec::new();
-        if *kind == FoldKind::RollingOrigin {
-            let (times, tk) = facts.times.as_ref().expect("rolling origin has times");
-            let mut ranges: Vec<Option<(i64, i64, u64)>> = vec![None; *kk as usize + 1];
+        let time_blocks = match kind {
+            FoldKind::RollingOrigin => *kk as usize + 1,
+            FoldKind::Purged | FoldKind::CombinatorialPurged => *kk as usize,
+            _ => 0,
+        };
+        if time_blocks > 0 {
+            let (times, tk) = facts.times.as_ref().expect("time designs have times");
+            let mut ranges: Vec<Option<(i64, i64, u64)>> = vec![None; time_blocks];
             for (row, &f) in fold.iter().enumerate() {
                 if f != NO_FOLD {
                     let t = times[row];
@@ -157,7 +162,40 @@ pub(super) fn record(
                 per_stratum.insert(strata.labels[s].clone(), v);
             }
         }
-        FoldRecord { kind: *kind, k: *kk, column: cfg.fold_column.clone(), blocks, strata: per_stratum }
+        let windows = matches!(kind, FoldKind::SlidingWindow | FoldKind::ExpandingWindow);
+        let (mut names, mut splits, mut paths) = (Vec::new(), Vec::new(), Vec::new());
+        if let Some(m) = membership.as_ref() {
+            for (i, status) in m.status.iter().enumerate() {
+                names.push(membership_column(&cfg.fold_column, i));
+                let count = |want: u8| {
+                    status
+                        .iter()
+                        .zip(&partition)
+                        .filter(|(&s, &p)| s == want && p != DROPPED && (p as usize) < k - 1)
+                        .count() as u64
+                };
+                splits.push(FoldSplitRecord {
+                    split: i as u32,
+                    validates: m.validates[i].clone(),
+                    train: count(folds::TRAIN),
+                    validate: count(folds::VALIDATE),
+                    out: count(folds::OUT),
+                });
+            }
+            paths = m.paths.clone();
+        }
+        FoldRecord {
+            kind: *kind,
+            k: *kk,
+            column: (!windows).then(|| cfg.fold_column.clone()),
+            blocks,
+            membership: names,
+            splits,
+            paths,
+            until: cfg.until.clone(),
+            embargo: cfg.embargo.clone(),
+            strata: per_stratum,
+        }
     });
     let order_record = match (&cfg.order_by, &time_plan, time_kind) {
         (Some(column), Some(plan), Some(kind)) => Some(OrderRecord {
@@ -166,6 +204,7 @@ pub(super) fn record(
             gap,
             starts: plan.starts.iter().map(|&s| format_time(s, kind)).collect(),
             test_start: plan.starts[test_index],
+            until: cfg.until.clone(),
         }),
         _ => None,
     };

@@ -364,7 +364,13 @@ pub struct TimePlan {
 ///
 /// # Errors
 /// When ties or groups leave a partition empty.
-pub fn assign_time(times: &[i64], groups: Option<&Groups>, ratios: &Ratios, gap: i64) -> Result<TimePlan> {
+pub fn assign_time(
+    times: &[i64],
+    ends: Option<&[i64]>,
+    groups: Option<&Groups>,
+    ratios: &Ratios,
+    gap: i64,
+) -> Result<TimePlan> {
     let k = ratios.partitions().len();
     let n = times.len();
     let totals = ratios.allocate(n as u64, &mut vec![0; k]);
@@ -426,6 +432,8 @@ pub fn assign_time(times: &[i64], groups: Option<&Groups>, ratios: &Ratios, gap:
     let mut dropped_by_group = vec![0u64; k];
     for (row, &t) in times.iter().enumerate() {
         let p = partition[row] as usize;
+        // With --until, a row reaches as far as its label interval's end.
+        let reach = ends.map_or(t, |e| e[row]);
         // The earliest later partition whose start (less the gap) this row reaches.
         for &start in &starts[p + 1..k] {
             if t >= start {
@@ -433,7 +441,7 @@ pub fn assign_time(times: &[i64], groups: Option<&Groups>, ratios: &Ratios, gap:
                 partition[row] = DROPPED;
                 break;
             }
-            if gap > 0 && t > start.saturating_sub(gap) {
+            if reach >= start || (gap > 0 && reach > start.saturating_sub(gap)) {
                 dropped_by_gap[p] += 1;
                 partition[row] = DROPPED;
                 break;
@@ -566,7 +574,7 @@ mod tests {
 
         #[test]
         fn time_order_ties_and_gap(times in proptest::collection::vec(0i64..60, 20..300), gap in 0i64..8, r in ratios()) {
-            let Ok(plan) = assign_time(&times, None, &r, gap) else { return Ok(()); };
+            let Ok(plan) = assign_time(&times, None, None, &r, gap) else { return Ok(()); };
             let k = r.partitions().len();
             // Every kept row of p is earlier than every row of p + 1.
             for p in 0..k - 1 {
@@ -601,7 +609,7 @@ mod tests {
             let ids: Vec<u8> = rows.iter().map(|x| x.0).collect();
             let times: Vec<i64> = rows.iter().map(|x| x.1).collect();
             let groups = groups_of(&ids);
-            let Ok(plan) = assign_time(&times, Some(&groups), &r, gap) else { return Ok(()); };
+            let Ok(plan) = assign_time(&times, None, Some(&groups), &r, gap) else { return Ok(()); };
             let k = r.partitions().len();
             let test_start = plan.starts[k - 1];
             let mut of_group = HashMap::new();
@@ -637,7 +645,7 @@ mod tests {
             let ids: Vec<u8> = order.iter().map(|&i| ids[i]).collect();
             let times: Vec<i64> = order.iter().map(|&i| times[i]).collect();
             let groups = groups_of(&ids);
-            let Ok(plan) = assign_time(&times, Some(&groups), &r, 0) else { return Ok(()); };
+            let Ok(plan) = assign_time(&times, None, Some(&groups), &r, 0) else { return Ok(()); };
             prop_assert!(!plan.partition.contains(&DROPPED));
             let k = r.partitions().len();
             let n = times.len() as f64;

