@@ -94,6 +94,9 @@ pub struct Args {
     /// Refuse the input unless its BLAKE3 is this one (64 hex digits).
     #[arg(long, value_name = "HASH", value_parser = parse_digest)]
     expect_input_digest: Option<String>,
+    /// Copies in one partition: `together` (equal features digests), `together-near` (also equal loose digests) or `apart`.
+    #[arg(long, default_value = "together", value_name = "HOW", value_parser = parse_copies)]
+    copies: split::Copies,
     /// Keep rows whose label is null: counted in the manifest and left out of scoring (default: refuse them).
     #[arg(long)]
     allow_null_label: bool,
@@ -123,6 +126,10 @@ fn parse_window(text: &str, test: u64, step: Option<u64>, gap: u64) -> anyhow::R
     }
     let w = split::Window { expanding, train, test, step, gap };
     Ok((FoldCount::Window(w), format!("{kind}:{train},{test},{step},{gap}")))
+}
+
+fn parse_copies(s: &str) -> Result<split::Copies, crate::error::Error> {
+    split::Copies::parse(s)
 }
 
 fn parse_min_share(s: &str) -> Result<f64, String> {
@@ -176,6 +183,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         embargo: args.embargo,
         stable: args.stable,
         allow_null_label: args.allow_null_label,
+        copies: args.copies,
         min_share: args.min_share,
         folds,
         fold_column: args.fold_column,

@@ -364,6 +364,17 @@ impl BoundSpec {
         Ok(())
     }
 
+    /// The features and loose digests of every row of a batch, appended to `out`.
+    ///
+    /// # Errors
+    /// Types that cannot be encoded.
+    pub fn features_and_loose_of(&self, batch: &RecordBatch, out: &mut Vec<(RowDigest, RowDigest)>) -> Result<()> {
+        let enc = self.encoder(batch)?;
+        let rows: Vec<usize> = (0..batch.num_rows()).collect();
+        out.extend(par_chunks(&rows, |chunk, scratch, out| enc.features_and_loose(chunk, scratch, out)));
+        Ok(())
+    }
+
     /// All three digests of the given rows of a batch.
     ///
     /// # Errors

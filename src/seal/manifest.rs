@@ -148,6 +148,10 @@ pub struct SplitOptionsRecord {
     /// Stable (hash-based) assignment.
     #[serde(default, skip_serializing_if = "std::ops::Not::not")]
     pub stable: bool,
+    /// `--copies`: `together`, `together-near` or `apart` (manifests
+    /// without it: apart).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub copies: Option<String>,
     /// `--allow-null-label`: rows with a null label kept.
     #[serde(default, skip_serializing_if = "std::ops::Not::not")]
     pub allow_null_label: bool,

@@ -60,8 +60,10 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
         _ => 0,
     };
     let mut time_plan = None;
+    // The units rows are assigned in: groups joined with copies, or groups.
+    let units = facts.units.as_ref().or(facts.groups.as_ref());
     let partition: Vec<u8> = if let Some((times, _)) = &facts.times {
-        let plan = structure::assign_time(times, facts.ends.as_deref(), facts.groups.as_ref(), &cfg.ratios, gap)?;
+        let plan = structure::assign_time(times, facts.ends.as_deref(), units, &cfg.ratios, gap)?;
         let p = plan.partition.clone();
         time_plan = Some(plan);
         p
@@ -73,8 +75,8 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
             }
             None => structure::assign_stable(facts.stable_keys.as_deref().expect("stable keys"), &cfg.ratios, cfg.seed),
         }
-    } else if let Some(groups) = &facts.groups {
-        structure::assign_grouped(groups, strata, &cfg.ratios, cfg.seed)
+    } else if let Some(units) = units {
+        structure::assign_grouped(units, strata, &cfg.ratios, cfg.seed)
     } else {
         stratified(strata, &cfg.ratios, cfg.seed).partition
     };
@@ -94,7 +96,7 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
         Some((count, _)) => {
             let dev: Vec<bool> = partition.iter().map(|&p| p != DROPPED && (p as usize) < test_index).collect();
             let times = facts.times.as_ref().map(|(t, _)| t.as_slice());
-            let (fold, kind, k) = folds::assign(&dev, *count, strata, facts.groups.as_ref(), times, cfg.seed)?;
+            let (fold, kind, k) = folds::assign(&dev, *count, strata, units, times, cfg.seed)?;
             let embargo = match (&cfg.embargo, &facts.times) {
                 (Some(e), Some((_, kind))) => parse_gap(e, *kind)?,
                 _ => 0,

@@ -12,6 +12,41 @@ use crate::error::{Error, Result};
 use crate::io::{self, ColumnType, Format, KeptText, Table, TypeHints};
 use crate::seal::handoff::ROW_ID;
 
+/// Which copies a split keeps in one partition (`--copies`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Copies {
+    /// Rows with equal features digests share a partition (and a fold).
+    Together,
+    /// Also rows with equal loose digests (near-copies).
+    TogetherNear,
+    /// Copies are placed like any other row.
+    Apart,
+}
+
+impl Copies {
+    /// The option's value as written in the manifest.
+    pub fn name(self) -> &'static str {
+        match self {
+            Copies::Together => "together",
+            Copies::TogetherNear => "together-near",
+            Copies::Apart => "apart",
+        }
+    }
+
+    /// Parses `--copies`.
+    ///
+    /// # Errors
+    /// Anything but `together`, `together-near` and `apart`.
+    pub fn parse(text: &str) -> Result<Copies> {
+        match text {
+            "together" => Ok(Copies::Together),
+            "together-near" => Ok(Copies::TogetherNear),
+            "apart" => Ok(Copies::Apart),
+            _ => Err(Error::Options(format!("--copies `{text}`: together, together-near or apart"))),
+        }
+    }
+}
+
 /// Everything a split needs, checked by the caller's option parsing.
 #[derive(Debug, Clone)]
 pub struct SplitConfig {
@@ -56,6 +91,8 @@ pub struct SplitConfig {
     pub embargo: Option<String>,
     /// Stable, hash-based assignment.
     pub stable: bool,
+    /// Whether copies are kept in one partition.
+    pub copies: Copies,
     /// Keep rows whose label is null (counted in the manifest, left out of
     /// scoring) instead of refusing the input.
     pub allow_null_label: bool,
@@ -142,7 +179,10 @@ pub(super) fn open(cfg: &SplitConfig) -> Result<Opened> {
         .collect();
     pass_one_columns.sort();
     pass_one_columns.dedup();
-    let keep = (format == Format::Csv && !(cfg.stable && cfg.group.is_empty())).then_some(pass_one_columns.as_slice());
+    // Pass one reads every key column (for copies, or stable row keys): no
+    // text is kept then, the file is read again.
+    let every_key = (cfg.stable && cfg.group.is_empty()) || cfg.copies != Copies::Apart;
+    let keep = (format == Format::Csv && !every_key).then_some(pass_one_columns.as_slice());
     let (table, kept) = Table::open_keeping(&cfg.input, format, &TypeHints::new(), keep)?;
     let schema = table.schema();
 

@@ -30,7 +30,7 @@ mod rounding;
 mod strata;
 mod structure;
 
-pub use self::config::SplitConfig;
+pub use self::config::{Copies, SplitConfig};
 pub use self::folds::{FoldCount, Window};
 use self::output::{OutputLock, Staging};
 pub use self::ratio::Ratios;

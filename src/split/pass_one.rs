@@ -4,7 +4,9 @@ use arrow_array::cast::AsArray;
 use arrow_array::types::Int32Type;
 use arrow_array::ArrayRef;
 
-use super::config::{Opened, SplitConfig};
+use rayon::slice::ParallelSliceMut;
+
+use super::config::{Copies, Opened, SplitConfig};
 use super::memo::DictionaryMemo;
 use super::strata::{self, Strata, StrataBuilder};
 use super::structure::Groups;
@@ -27,6 +29,11 @@ pub(super) struct RowFacts {
     pub(super) ends: Option<Vec<i64>>,
     /// Row digests, for `--stable` without groups.
     pub(super) stable_keys: Option<Vec<RowDigest>>,
+    /// The units rows are assigned in when copies are kept together: the
+    /// union of the groups and of the rows with equal features (and, for
+    /// near-copies, loose) digests. `None` when every unit would be a group
+    /// or a single row.
+    pub(super) units: Option<Groups>,
     /// Null values per label column (with `--allow-null-label`; without it
     /// a null label is an error).
     pub(super) null_labels: Vec<(String, u64)>,
@@ -50,8 +57,11 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     needed.sort();
     needed.dedup();
     let stable_rows = cfg.stable && group.is_empty();
-    if stable_rows {
+    let copies = cfg.copies != Copies::Apart;
+    if stable_rows || copies {
         needed.extend(spec.columns());
+        needed.sort();
+        needed.dedup();
     }
     if needed.is_empty() && format != Format::Csv {
         needed.push(table.schema().field(0).name().clone());
@@ -62,13 +72,16 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     let mut group_seen = vec![false; group.len()];
     let mut times: Option<(Vec<i64>, Option<TimeKind>)> = cfg.order_by.as_ref().map(|_| (Vec::new(), None));
     let mut stable_keys = stable_rows.then(Vec::new);
+    // Features (and loose) digests of every row, with their row numbers.
+    let mut copy_keys: Vec<(RowDigest, u32)> = Vec::new();
+    let mut near_keys: Vec<(RowDigest, u32)> = Vec::new();
     let mut ends: Option<(Vec<i64>, Option<TimeKind>)> = cfg.until.as_ref().map(|_| (Vec::new(), None));
     // The rows come from the kept CSV text or from a reading pass.
     // Text columns of strata and of a one-column group key come as
     // dictionaries where the file has them: their values are encoded and
     // digested once per dictionary, not once per row.
     let mut dictionaries: Vec<String> = Vec::new();
-    if !stable_rows {
+    if !stable_rows && !copies {
         dictionaries.extend(stratify.iter().filter(|(_, t)| !t.is_numeric()).map(|(n, _)| n.clone()));
         if let [column] = group {
             dictionaries.push(column.clone());
@@ -176,8 +189,24 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
                 }
             }
         }
-        if let Some(keys) = stable_keys.as_mut() {
+        if let Some(keys) = stable_keys.as_mut().filter(|_| !copies) {
             spec.bind(&cfg.input, &batch.data.schema())?.row_digests(&batch.data, keys)?;
+        }
+        if copies {
+            let first = (rows - batch.data.num_rows() as u64) as u32;
+            let bound = spec.bind_features(&cfg.input, &batch.data.schema())?;
+            if cfg.copies == Copies::TogetherNear {
+                let mut pairs = Vec::with_capacity(batch.data.num_rows());
+                bound.features_and_loose_of(&batch.data, &mut pairs)?;
+                for (i, (f, l)) in pairs.into_iter().enumerate() {
+                    copy_keys.push((f, first + i as u32));
+                    near_keys.push((l, first + i as u32));
+                }
+            } else {
+                let mut digests = Vec::with_capacity(batch.data.num_rows());
+                bound.row_digests(&batch.data, &mut digests)?;
+                copy_keys.extend(digests.into_iter().zip(first..));
+            }
         }
     }
     if let Some(groups) = groups.as_mut() {
@@ -224,5 +253,75 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
         }
     }
     let ends = ends.map(|(v, _)| v);
-    Ok(RowFacts { rows, strata, groups, times, ends, stable_keys, null_labels })
+    if let Some(keys) = stable_keys.as_mut() {
+        // Copies kept together: a stable split reads the partition off the
+        // features (or loose) digest, equal for every copy.
+        let by = if cfg.copies == Copies::TogetherNear { &near_keys } else { &copy_keys };
+        keys.extend(by.iter().map(|&(d, _)| d));
+    }
+    let units = copies.then(|| copy_units(rows as usize, groups.as_ref(), copy_keys, near_keys)).flatten();
+    Ok(RowFacts { rows, strata, groups, times, ends, stable_keys, units, null_labels })
+}
+
+/// The union of the groups and of the rows sharing a features (or loose)
+/// digest, as groups numbered by their first row; `None` when that is no
+/// more than the groups (or than single rows, without groups).
+fn copy_units(
+    rows: usize,
+    groups: Option<&Groups>,
+    mut copy_keys: Vec<(RowDigest, u32)>,
+    mut near_keys: Vec<(RowDigest, u32)>,
+) -> Option<Groups> {
+    let mut parent: Vec<u32> = (0..rows as u32).collect();
+    fn root(parent: &mut [u32], mut x: u32) -> u32 {
+        while parent[x as usize] != x {
+            parent[x as usize] = parent[parent[x as usize] as usize];
+            x = parent[x as usize];
+        }
+        x
+    }
+    let union = |parent: &mut [u32], a: u32, b: u32| {
+        let (ra, rb) = (root(parent, a), root(parent, b));
+        if ra != rb {
+            // The smaller row number stays the root: numbering by first row.
+            let (lo, hi) = if ra < rb { (ra, rb) } else { (rb, ra) };
+            parent[hi as usize] = lo;
+        }
+    };
+    if let Some(g) = groups {
+        let mut first = vec![u32::MAX; g.len()];
+        for (row, &id) in g.row_group.iter().enumerate() {
+            if first[id as usize] == u32::MAX {
+                first[id as usize] = row as u32;
+            } else {
+                union(&mut parent, first[id as usize], row as u32);
+            }
+        }
+    }
+    let groups_only: Vec<u32> = (0..rows as u32).map(|r| root(&mut parent, r)).collect();
+    for keys in [&mut copy_keys, &mut near_keys] {
+        keys.par_sort_unstable();
+        for pair in keys.windows(2) {
+            if pair[0].0 == pair[1].0 {
+                union(&mut parent, pair[0].1, pair[1].1);
+            }
+        }
+    }
+    let mut joined = false;
+    for r in 0..rows as u32 {
+        let root_now = root(&mut parent, r);
+        joined |= root_now != groups_only[r as usize];
+    }
+    if !joined {
+        return None;
+    }
+    // A unit's digest: the features digest of its first row (its root).
+    let mut first_digest: Vec<RowDigest> = vec![[0; 16]; rows];
+    for &(d, r) in &copy_keys {
+        first_digest[r as usize] = d;
+    }
+    let digests: Vec<RowDigest> = (0..rows as u32).map(|r| first_digest[root(&mut parent, r) as usize]).collect();
+    let mut units = Groups::new();
+    units.push(&digests);
+    Some(units)
 }

@@ -238,6 +238,7 @@ pub(super) fn record(
             gap: cfg.gap.clone(),
             stable: cfg.stable,
             allow_null_label: cfg.allow_null_label,
+            copies: Some(cfg.copies.name().to_string()),
             folds: cfg.folds.as_ref().map(|(_, text)| text.clone()),
             output_format,
             compression: cfg.compression.as_ref().map(|(_, text)| text.clone()),

@@ -4,7 +4,7 @@
 //! The rules, as docs/format.md repeats them:
 //! - **Groups** (`--group`): rows with equal group values (compared by their
 //!   canonical encoding) share a partition. Groups are taken in a seeded
-//!   random order and each goes to the partition it brings closest to the
+//!   random order, then largest first, and each goes to the partition it brings closest to the
 //!   asked counts: without strata, the one with the most rows still missing;
 //!   with strata, the one that least increases the squared shortfall of every
 //!   stratum in every partition (each stratum weighted by its size).
@@ -188,8 +188,11 @@ pub fn assign_grouped(groups: &Groups, strata: &Strata, ratios: &Ratios, seed: u
     let k = ratios.partitions().len();
     let n: u64 = groups.sizes.iter().sum();
     let totals = ratios.allocate(n, &mut vec![0; k]);
+    // Largest groups first (ties in seeded order): the small ones placed last
+    // even out what the large ones leave.
     let mut order: Vec<u32> = (0..groups.len() as u32).collect();
     SplitRng::new(seed).shuffle(&mut order);
+    order.sort_by_key(|&g| std::cmp::Reverse(groups.sizes[g as usize]));
     let mut group_partition = vec![0u8; groups.len()];
     let stratified = strata.sizes.len() > 1;
     let mut held = vec![0u64; k];

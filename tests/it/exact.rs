@@ -152,3 +152,80 @@ fn a_partition_far_from_its_share_is_refused_with_the_cause() {
         t.ok(&["split", "samples.csv", "--out", "out", "--group", "station", "--order-by", "day", "--min-share", "0"]);
     assert!(r.stderr.contains("left out"), "{}", r.stderr);
 }
+
+/// 2,000 station samples of which 5% are exact copies of another sample and
+/// 2% near-copies (the station note in other case and spacing, a reading
+/// rounded past its sixth significant digit).
+fn with_copies(t: &Test) {
+    let mut rows: Vec<String> = (0..1860)
+        .map(|i| {
+            format!("ST{:03},{}.{:03},sample {i} clear,{}", i % 97, 7 + i % 2, i % 1000, ["none", "low", "high"][i % 3])
+        })
+        .collect();
+    for i in 0..100 {
+        rows.push(rows[i * 17].clone());
+    }
+    for i in 0..40 {
+        let original = rows[i * 31 + 5].clone();
+        let mut fields: Vec<String> = original.split(',').map(String::from).collect();
+        fields[2] = format!("  {}  ", fields[2].to_uppercase());
+        fields[1] = format!("{}0000001", fields[1]);
+        rows.push(fields.join(","));
+    }
+    // The copies spread through the file.
+    let mut order: Vec<usize> = (0..rows.len()).collect();
+    order.sort_by_key(|&i| (i * 7919) % rows.len());
+    let mut csv = String::from("station,ph,note,bloom_class\n");
+    for i in order {
+        csv.push_str(&rows[i]);
+        csv.push('\n');
+    }
+    t.write("samples.csv", csv);
+}
+
+fn leak_counts(t: &Test, out: &str) -> (u64, u64, u64) {
+    let r = t.run(&["check", &format!("{out}/train.csv"), "--against", out, "--json"]);
+    let f = &r.json()["files"][0]["findings"];
+    let n = |k: &str| f[k]["count"].as_u64().unwrap_or_else(|| panic!("{k}: {f}"));
+    (n("row"), n("features"), n("near"))
+}
+
+#[test]
+fn copies_kept_together_leave_no_copy_on_both_sides() {
+    let t = Test::new();
+    with_copies(&t);
+    let split = |out: &str, copies: &str| {
+        t.ok(&[
+            "split",
+            "samples.csv",
+            "--out",
+            out,
+            "--label",
+            "bloom_class",
+            "--stratify",
+            "bloom_class",
+            "--copies",
+            copies,
+        ])
+    };
+    // Placed apart, copies on both sides of the seal are found by check.
+    split("apart", "apart");
+    let (row, features, near) = leak_counts(&t, "apart");
+    assert!(row > 0 && features > 0 && near > features, "apart: {row} {features} {near}");
+    // Together: no exact copy, but near-copies still straddle.
+    split("together", "together");
+    let (row, features, near) = leak_counts(&t, "together");
+    assert_eq!((row, features), (0, 0));
+    assert!(near > 0, "near-copies are not exact copies: {near}");
+    // Together with near-copies: nothing at all.
+    split("near", "together-near");
+    assert_eq!(leak_counts(&t, "near"), (0, 0, 0));
+    let m = manifest(&t.path("near"));
+    assert_eq!(m["options"]["copies"].as_str(), Some("together-near"));
+    // The shares hold: within a few rows of 70/15/15 of 2,000.
+    let rows: Vec<u64> = m["partitions"].as_sequence().unwrap().iter().map(|p| p["rows"].as_u64().unwrap()).collect();
+    for (got, want) in rows.iter().zip([1400u64, 300, 300]) {
+        assert!(got.abs_diff(want) <= 3, "{rows:?}");
+    }
+    t.ok(&["verify", "near"]);
+}

@@ -137,7 +137,21 @@ fn quantile_bins_over_nans_of_many_bit_patterns_split_instead_of_panicking() {
     let t = Test::new();
     write_nan_file(&t, "nan.arrow", false);
     write_nan_file(&t, "some.arrow", true);
-    let r = t.ok(&["split", "nan.arrow", "--out", "a", "--stratify", "turbidity_ntu", "--bins", "3", "--json"]);
+    // The NaN rows are copies of each other (every NaN is one value): kept
+    // together they could not fill three partitions, so they are placed apart.
+    let r = t.ok(&[
+        "split",
+        "nan.arrow",
+        "--out",
+        "a",
+        "--stratify",
+        "turbidity_ntu",
+        "--bins",
+        "3",
+        "--copies",
+        "apart",
+        "--json",
+    ]);
     let j = r.json();
     let rows: u64 = ["train", "validation", "test"].iter().map(|p| j["partitions"][p]["rows"].as_u64().unwrap()).sum();
     assert_eq!(rows, 60);
@@ -145,7 +159,7 @@ fn quantile_bins_over_nans_of_many_bit_patterns_split_instead_of_panicking() {
     let m = crate::util::manifest(&t.path("a"));
     assert_eq!(m["strata"]["count"].as_u64(), Some(1), "{m:?}");
     // With numbers beside the NaNs, the numbers are binned and NaN stays a stratum of its own.
-    t.ok(&["split", "some.arrow", "--out", "b", "--stratify", "turbidity_ntu", "--bins", "3"]);
+    t.ok(&["split", "some.arrow", "--out", "b", "--stratify", "turbidity_ntu", "--bins", "3", "--copies", "apart"]);
     let m = crate::util::manifest(&t.path("b"));
     assert_eq!(m["strata"]["count"].as_u64(), Some(4), "three bins and NaN: {m:?}");
 }

@@ -283,10 +283,13 @@ fn duplicate_rows_across_partitions_are_reported() {
         csv.push_str(&format!("{},{}\n", i % 150, i % 150));
     }
     t.write("dups.csv", csv);
-    let r = t.ok(&["split", "dups.csv", "--out", "out", "--json"]);
+    // Placed like any other row (`--copies apart`), copies land in two partitions: a warning.
+    let r = t.ok(&["split", "dups.csv", "--out", "out", "--copies", "apart", "--json"]);
     let warnings = r.json()["warnings"].as_array().unwrap().clone();
     assert!(warnings.iter().any(|w| w.as_str().unwrap().contains("equal a row of another partition")), "{warnings:?}");
-    // Grouping by the identifying column keeps duplicates together: no warning.
+    // Kept together (the default), or grouped by the identifying column: no warning.
+    let r = t.ok(&["split", "dups.csv", "--out", "out1", "--json"]);
+    assert!(r.json()["warnings"].as_array().unwrap().is_empty(), "{}", r.stdout);
     let r = t.ok(&["split", "dups.csv", "--out", "out2", "--group", "id", "--json"]);
     assert!(r.json()["warnings"].as_array().unwrap().is_empty());
 }
