@@ -25,6 +25,9 @@ pub struct Args {
     /// Keep each stratum's share in every partition (comma-separated columns).
     #[arg(long, value_delimiter = ',', value_name = "COL")]
     stratify: Vec<String>,
+    /// Multilabel: keep every 0/1 label column's share of positives in every partition and fold (iterative stratification).
+    #[arg(long, value_delimiter = ',', value_name = "COL")]
+    stratify_labels: Vec<String>,
     /// Quantile bins for numeric stratify columns with more distinct values than this.
     #[arg(long, default_value_t = 5, value_name = "K")]
     bins: usize,
@@ -67,6 +70,9 @@ pub struct Args {
     /// With --folds purged:K or cpcv:N,K: leave out training rows starting within this after a validated block (7d, 36h; a number for integers).
     #[arg(long, value_name = "DURATION")]
     embargo: Option<String>,
+    /// With --folds K: make R fold designs, each from a seed derived from --seed (columns fold, fold_r2, ...).
+    #[arg(long, default_value_t = 1, value_name = "R")]
+    repeats: u32,
     /// Name of the fold column added to the development partitions.
     #[arg(long, default_value = "fold", value_name = "NAME")]
     fold_column: String,
@@ -174,6 +180,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         seed: args.seed,
         stratify: args.stratify,
         bins: args.bins,
+        stratify_labels: args.stratify_labels,
         key: args.key,
         label: args.label,
         group: args.group,
@@ -186,6 +193,7 @@ pub fn run(args: Args) -> anyhow::Result<Outcome> {
         copies: args.copies,
         min_share: args.min_share,
         folds,
+        repeats: args.repeats,
         fold_column: args.fold_column,
         digest_key: args.digest_key.as_deref().map(crate::cli::read_key).transpose()?,
         created: creation_time()?,

@@ -56,6 +56,10 @@ pub struct Manifest {
     /// The strata, when stratified.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub strata: Option<StrataRecord>,
+    /// The label columns of a multilabel split and their positives per
+    /// partition (in partition order).
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub label_positives: BTreeMap<String, Vec<u64>>,
     /// The groups, when grouped.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub groups: Option<GroupRecord>,
@@ -132,6 +136,9 @@ pub struct SplitOptionsRecord {
     pub stratify: Vec<String>,
     /// Quantile bins for numeric stratify columns.
     pub bins: u32,
+    /// 0/1 label columns stratified together.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub stratify_labels: Vec<String>,
     /// Key columns (every column when not given).
     pub key: Vec<String>,
     /// Label columns.
@@ -314,6 +321,9 @@ pub struct FoldRecord {
     /// Time designs: the blocks, each with its rows and time range.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub blocks: Vec<BlockRecord>,
+    /// The fold columns of further repeats (`--repeats`), each from its own seed.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub repeat_columns: Vec<String>,
     /// The membership columns, one per split: `train`, `validate` or `out`
     /// for every development row (none for leave-one-out).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
@@ -723,6 +733,8 @@ pub enum FoldKind {
     SlidingWindow,
     /// Expanding windows in time order.
     ExpandingWindow,
+    /// Multilabel folds by iterative stratification.
+    Multilabel,
 }
 
 impl FoldKind {
@@ -738,6 +750,7 @@ impl FoldKind {
             FoldKind::CombinatorialPurged => "combinatorial purged",
             FoldKind::SlidingWindow => "sliding window",
             FoldKind::ExpandingWindow => "expanding window",
+            FoldKind::Multilabel => "multilabel stratified (iterative stratification)",
         }
     }
 }

@@ -4,6 +4,7 @@
 
 use super::config::{Opened, SplitConfig};
 use super::folds;
+use super::multilabel;
 use super::pass_one::RowFacts;
 use super::ratio::Ratios;
 use super::rounding;
@@ -30,6 +31,8 @@ pub(super) struct Assignment {
     pub(super) totals: Vec<u64>,
     /// Every row's fold ([`super::NO_FOLD`] outside them), their kind and count.
     pub(super) folds: Option<(Vec<u32>, FoldKind, u32)>,
+    /// The folds of every further repeat (`--repeats`).
+    pub(super) repeats: Vec<Vec<u32>>,
     /// Every split's explicit membership (none for leave-one-out).
     pub(super) membership: Option<folds::Membership>,
     /// Strata too small to reach every partition.
@@ -75,6 +78,10 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
             }
             None => structure::assign_stable(facts.stable_keys.as_deref().expect("stable keys"), &cfg.ratios, cfg.seed),
         }
+    } else if let Some(sets) = &facts.label_sets {
+        let all = vec![true; sets.len()];
+        let context = "cleave 2026-12-04 multilabel partitions v1";
+        multilabel::assign(sets, cfg.stratify_labels.len(), &all, cfg.ratios.weights(), cfg.seed, context)
     } else if let Some(units) = units {
         structure::assign_grouped(units, strata, &cfg.ratios, cfg.seed)
     } else {
@@ -92,11 +99,40 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
     refuse_far_shares(cfg, facts, &totals, time_plan.as_ref())?;
     let test_index = k - 1;
     let mut membership = None;
+    let mut repeats = Vec::new();
     let folds = match &cfg.folds {
         Some((count, _)) => {
             let dev: Vec<bool> = partition.iter().map(|&p| p != DROPPED && (p as usize) < test_index).collect();
             let times = facts.times.as_ref().map(|(t, _)| t.as_slice());
-            let (fold, kind, k) = folds::assign(&dev, *count, strata, units, times, cfg.seed)?;
+            let deal = |seed: u64| -> Result<(Vec<u32>, FoldKind, u32)> {
+                Ok(match (&facts.label_sets, count) {
+                    (Some(sets), folds::FoldCount::K(k)) => {
+                        let dev_rows = dev.iter().filter(|&&d| d).count();
+                        if *k as usize > dev_rows {
+                            return Err(Error::Options(format!(
+                                "--folds {k}: only {dev_rows} development rows to share out"
+                            )));
+                        }
+                        let context = "cleave 2026-12-04 multilabel folds v1";
+                        let subset = multilabel::assign(
+                            sets,
+                            cfg.stratify_labels.len(),
+                            &dev,
+                            &vec![1; *k as usize],
+                            seed,
+                            context,
+                        );
+                        let fold =
+                            subset.iter().map(|&f| if f == u8::MAX { folds::NO_FOLD } else { f as u32 }).collect();
+                        (fold, FoldKind::Multilabel, *k)
+                    }
+                    _ => folds::assign(&dev, *count, strata, units, times, seed)?,
+                })
+            };
+            let (fold, kind, k) = deal(cfg.seed)?;
+            for r in 1..cfg.repeats {
+                repeats.push(deal(folds::repeat_seed(cfg.seed, r))?.0);
+            }
             let embargo = match (&cfg.embargo, &facts.times) {
                 (Some(e), Some((_, kind))) => parse_gap(e, *kind)?,
                 _ => 0,
@@ -112,6 +148,15 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
                 }
                 _ => {
                     membership = folds::membership(*count, kind, &fold, k, intervals);
+                    // Each repeat's splits follow the first one's.
+                    for again in &repeats {
+                        if let (Some(m), Some(more)) =
+                            (membership.as_mut(), folds::membership(*count, kind, again, k, intervals))
+                        {
+                            m.status.extend(more.status);
+                            m.validates.extend(more.validates);
+                        }
+                    }
                     (fold, kind, k)
                 }
             })
@@ -133,7 +178,19 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
         }
     }
     let warnings = short_warning(&short, &partitions).into_iter().collect();
-    Ok(Assignment { partitions, partition, time_plan, gap, counts, totals, folds, membership, short, warnings })
+    Ok(Assignment {
+        partitions,
+        partition,
+        time_plan,
+        gap,
+        counts,
+        totals,
+        folds,
+        repeats,
+        membership,
+        short,
+        warnings,
+    })
 }
 
 /// Refuses an assignment in which a partition ends with less than

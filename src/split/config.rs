@@ -74,6 +74,8 @@ pub struct SplitConfig {
     pub stratify: Vec<String>,
     /// Quantile bins for numeric stratify columns.
     pub bins: usize,
+    /// 0/1 label columns stratified together (multilabel).
+    pub stratify_labels: Vec<String>,
     /// Key columns (None: every column).
     pub key: Option<Vec<String>>,
     /// Label columns.
@@ -101,6 +103,8 @@ pub struct SplitConfig {
     pub min_share: f64,
     /// Cross-validation folds over the development rows.
     pub folds: Option<(FoldCount, String)>,
+    /// Fold designs made (each from its own seed), 1 or more.
+    pub repeats: u32,
     /// Name of the fold column.
     pub fold_column: String,
     /// Key for keyed digests.
@@ -191,6 +195,46 @@ pub(super) fn open(cfg: &SplitConfig) -> Result<Opened> {
     let group = resolve_columns(&table, &cfg.group)?;
     for o in cfg.order_by.iter().chain(&cfg.until) {
         table.column_index(o)?;
+    }
+    let stratify_labels = resolve_columns(&table, &cfg.stratify_labels)?;
+    for l in &stratify_labels {
+        let t = crate::digest::require_supported(&cfg.input, schema.field_with_name(l).expect("resolved above"))?;
+        if !matches!(t, ColumnType::Integer | ColumnType::Boolean) {
+            return Err(Error::column(
+                &cfg.input,
+                l,
+                "holds values other than 0/1 or booleans; --stratify-labels takes indicator columns",
+            ));
+        }
+    }
+    if let Some((count, _)) = &cfg.folds {
+        // The columns the development partitions gain: repeats' fold columns
+        // and one membership column per split (a window design's first).
+        let splits = match count {
+            FoldCount::K(k) | FoldCount::Purged(k) => *k as usize * cfg.repeats as usize,
+            FoldCount::Cpcv { n, k } => super::folds::binomial(*n, *k) as usize,
+            FoldCount::Window(_) => 1,
+            FoldCount::LeaveOneOut => 0,
+        };
+        let mut added: Vec<String> =
+            (1..cfg.repeats as usize).map(|r| super::folds::repeat_column(&cfg.fold_column, r)).collect();
+        added.extend((0..splits).map(|s| super::folds::membership_column(&cfg.fold_column, s)));
+        if let Some(name) = added.iter().find(|n| schema.index_of(n).is_ok()) {
+            return Err(Error::Options(format!(
+                "the input already has a column `{name}`, a name the fold columns need; name them otherwise with --fold-column"
+            )));
+        }
+    }
+    let stratify_labels = resolve_columns(&table, &cfg.stratify_labels)?;
+    for l in &stratify_labels {
+        let t = crate::digest::require_supported(&cfg.input, schema.field_with_name(l).expect("resolved above"))?;
+        if !matches!(t, ColumnType::Integer | ColumnType::Boolean) {
+            return Err(Error::column(
+                &cfg.input,
+                l,
+                "holds values other than 0/1 or booleans; --stratify-labels takes indicator columns",
+            ));
+        }
     }
     if let Some((_, text)) = &cfg.folds {
         let splits = match cfg.folds.as_ref().map(|f| f.0) {
@@ -294,6 +338,36 @@ pub(super) fn check_combinations(cfg: &SplitConfig) -> Result<()> {
     if let Some((count, _)) = &cfg.folds {
         if count.needs_time() && cfg.order_by.is_none() {
             return refuse("this fold design is laid out in time: give --order-by");
+        }
+    }
+    if cfg.repeats == 0 {
+        return refuse("--repeats must be at least 1");
+    }
+    if cfg.repeats > 1 {
+        match &cfg.folds {
+            Some((FoldCount::K(k), _)) if cfg.order_by.is_none() => {
+                if (*k as usize).saturating_mul(cfg.repeats as usize) > super::folds::MAX_SPLITS {
+                    return refuse("--repeats: more than 256 splits in all; fewer repeats or folds");
+                }
+            }
+            _ => {
+                return refuse(
+                    "--repeats needs --folds K without --order-by: time designs and leave-one-out are the same whatever the seed",
+                )
+            }
+        }
+    }
+    if !cfg.stratify_labels.is_empty() {
+        if cfg.stratify_labels.len() > 64 {
+            return refuse("--stratify-labels takes at most 64 label columns");
+        }
+        if !cfg.stratify.is_empty() || !cfg.group.is_empty() || cfg.order_by.is_some() || cfg.stable {
+            return refuse(
+                "--stratify-labels shares out rows by their label sets alone: it does not combine with --stratify, --group, --order-by or --stable",
+            );
+        }
+        if matches!(cfg.folds, Some((FoldCount::LeaveOneOut, _))) {
+            return refuse("--stratify-labels with --folds loo: one row per fold leaves nothing to stratify");
         }
     }
     if cfg.bins < 2 {

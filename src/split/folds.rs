@@ -121,6 +121,22 @@ pub fn binomial(n: u32, k: u32) -> u64 {
     (0..k as u64).fold(1u64, |acc, i| acc.saturating_mul(n as u64 - i) / (i + 1))
 }
 
+/// The name of repeat `r`'s fold column (`r` from 1; repeat 0's is the fold column).
+pub fn repeat_column(fold_column: &str, r: usize) -> String {
+    format!("{fold_column}_r{}", r + 1)
+}
+
+/// The seed of fold repeat `r` (repeat 0 uses the split's seed).
+pub fn repeat_seed(seed: u64, r: u32) -> u64 {
+    if r == 0 {
+        return seed;
+    }
+    let mut material = seed.to_le_bytes().to_vec();
+    material.extend_from_slice(&r.to_le_bytes());
+    let key = blake3::derive_key("cleave 2026-12-04 fold repeat v1", &material);
+    u64::from_le_bytes(key[..8].try_into().expect("8 bytes"))
+}
+
 /// The name of split `i`'s membership column.
 pub fn membership_column(fold_column: &str, i: usize) -> String {
     format!("{fold_column}_{i}")

@@ -21,6 +21,7 @@ mod assign;
 mod config;
 mod folds;
 mod memo;
+mod multilabel;
 mod output;
 mod pass_one;
 mod pass_two;

@@ -25,6 +25,8 @@ pub(super) struct RowFacts {
     pub(super) groups: Option<Groups>,
     /// Every row's time, with `--order-by`.
     pub(super) times: Option<(Vec<i64>, TimeKind)>,
+    /// Every row's label set (bit l: label column l is 1), with `--stratify-labels`.
+    pub(super) label_sets: Option<Vec<u64>>,
     /// Every row's label interval end, with `--until`.
     pub(super) ends: Option<Vec<i64>>,
     /// Row digests, for `--stable` without groups.
@@ -53,6 +55,7 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     needed.extend(group.iter().cloned());
     needed.extend(cfg.order_by.iter().cloned());
     needed.extend(cfg.until.iter().cloned());
+    needed.extend(cfg.stratify_labels.iter().cloned());
     needed.extend(opened.label.iter().cloned());
     needed.sort();
     needed.dedup();
@@ -75,6 +78,7 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     // Features (and loose) digests of every row, with their row numbers.
     let mut copy_keys: Vec<(RowDigest, u32)> = Vec::new();
     let mut near_keys: Vec<(RowDigest, u32)> = Vec::new();
+    let mut label_sets: Option<Vec<u64>> = (!cfg.stratify_labels.is_empty()).then(Vec::new);
     let mut ends: Option<(Vec<i64>, Option<TimeKind>)> = cfg.until.as_ref().map(|_| (Vec::new(), None));
     // The rows come from the kept CSV text or from a reading pass.
     // Text columns of strata and of a one-column group key come as
@@ -192,6 +196,9 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
         if let Some(keys) = stable_keys.as_mut().filter(|_| !copies) {
             spec.bind(&cfg.input, &batch.data.schema())?.row_digests(&batch.data, keys)?;
         }
+        if let Some(sets) = label_sets.as_mut() {
+            label_set_values(cfg, &batch, sets)?;
+        }
         if copies {
             let first = (rows - batch.data.num_rows() as u64) as u32;
             let bound = spec.bind_features(&cfg.input, &batch.data.schema())?;
@@ -260,7 +267,7 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
         keys.extend(by.iter().map(|&(d, _)| d));
     }
     let units = copies.then(|| copy_units(rows as usize, groups.as_ref(), copy_keys, near_keys)).flatten();
-    Ok(RowFacts { rows, strata, groups, times, ends, stable_keys, units, null_labels })
+    Ok(RowFacts { rows, strata, groups, times, ends, label_sets, stable_keys, units, null_labels })
 }
 
 /// The union of the groups and of the rows sharing a features (or loose)
@@ -324,4 +331,35 @@ fn copy_units(
     let mut units = Groups::new();
     units.push(&digests);
     Some(units)
+}
+
+/// Appends every row's label set: bit l is set when `--stratify-labels`
+/// column l holds 1 (or true).
+///
+/// # Errors
+/// A null, or a value other than 0 and 1.
+fn label_set_values(cfg: &SplitConfig, batch: &io::Batch, out: &mut Vec<u64>) -> Result<()> {
+    let at = out.len();
+    out.resize(at + batch.data.num_rows(), 0);
+    for (l, name) in cfg.stratify_labels.iter().enumerate() {
+        let col = batch.data.column_by_name(name).expect("projected");
+        let ints = arrow_cast::cast(col, &arrow_schema::DataType::Int64)
+            .map_err(|e| Error::column(&cfg.input, name, format!("cannot be read as 0/1: {e}")))?;
+        let ints = ints.as_primitive::<arrow_array::types::Int64Type>();
+        for i in 0..ints.len() {
+            match (arrow_array::Array::is_null(ints, i), ints.value(i)) {
+                (false, 0) => {}
+                (false, 1) => out[at + i] |= 1 << l,
+                _ => {
+                    return Err(batch.error_at(
+                        &cfg.input,
+                        i,
+                        name,
+                        "is not 0 or 1; --stratify-labels takes indicator columns",
+                    ))
+                }
+            }
+        }
+    }
+    Ok(())
 }

@@ -67,14 +67,22 @@ pub(super) fn write(
         )
     });
     let membership = plan.membership.as_ref();
+    // The fold columns: the fold column, then one per further repeat.
+    let fold_columns: Vec<&[u32]> = match folds {
+        Some((f, _, _)) if single => {
+            std::iter::once(f.as_slice()).chain(plan.repeats.iter().map(Vec::as_slice)).collect()
+        }
+        _ => Vec::new(),
+    };
     let mut extra_names: Vec<String> = Vec::new();
     if single {
         extra_names.push(cfg.fold_column.clone());
+        extra_names.extend((1..fold_columns.len()).map(|r| super::folds::repeat_column(&cfg.fold_column, r)));
     }
     if let Some(m) = membership {
         extra_names.extend((0..m.status.len()).map(|i| super::folds::membership_column(&cfg.fold_column, i)));
     }
-    let fold_schema = with_fold_columns(schema, &extra_names, single);
+    let fold_schema = with_fold_columns(schema, &extra_names, fold_columns.len());
     // Read once for every writer: the CSV header, the input's Parquet codec.
     let csv_header = if raw_csv { Some(table.csv_header()?) } else { None };
     let compression = match &cfg.compression {
@@ -211,28 +219,18 @@ pub(super) fn write(
                 }
             }
             let dev = folds.is_some() && p < test_index;
-            // A development row's extra values: its fold, then its part in every split.
-            let extras = |i: u32, out: &mut Vec<&'static str>, fold_text: &mut String| {
-                out.clear();
-                fold_text.clear();
-                if single {
-                    fold_text.push_str(&fold_of(i).expect("dev row").to_string());
-                }
-                if let Some(m) = membership {
-                    out.extend(m.status.iter().map(|st| status_name(st[start + i as usize])));
-                }
-            };
             if let Some(raw) = &batch.raw {
                 let mut bytes = Vec::with_capacity(raw.bytes.len() * indices[p].len() / n.max(1) + 64);
-                let (mut parts, mut fold_text) = (Vec::new(), String::new());
+                let mut texts: Vec<String> = Vec::new();
                 for &i in &indices[p] {
                     if dev {
-                        extras(i, &mut parts, &mut fold_text);
-                        let mut values: Vec<&str> = Vec::with_capacity(parts.len() + 1);
-                        if single {
-                            values.push(&fold_text);
+                        // A development row's fold in every repeat, then its part in every split.
+                        texts.clear();
+                        texts.extend(fold_columns.iter().map(|f| f[start + i as usize].to_string()));
+                        let mut values: Vec<&str> = texts.iter().map(String::as_str).collect();
+                        if let Some(m) = membership {
+                            values.extend(m.status.iter().map(|st| status_name(st[start + i as usize])));
                         }
-                        values.extend(parts.iter().copied());
                         append_csv_fields(raw.record(i as usize), &values, &mut bytes);
                     } else {
                         bytes.extend_from_slice(raw.record(i as usize));
@@ -240,8 +238,14 @@ pub(super) fn write(
                 }
                 w.write_raw(bytes)?;
             } else {
-                let fold_values: Option<Vec<i64>> =
-                    (dev && single).then(|| indices[p].iter().map(|&i| fold_of(i).expect("dev row") as i64).collect());
+                let fold_values: Vec<Vec<i64>> = if dev {
+                    fold_columns
+                        .iter()
+                        .map(|f| indices[p].iter().map(|&i| f[start + i as usize] as i64).collect())
+                        .collect()
+                } else {
+                    Vec::new()
+                };
                 let status_values: Vec<Vec<&'static str>> = match membership.filter(|_| dev) {
                     Some(m) => m
                         .status
@@ -258,7 +262,7 @@ pub(super) fn write(
                         return Ok(part);
                     }
                     let mut columns = part.columns().to_vec();
-                    if let Some(values) = fold_values {
+                    for values in fold_values {
                         columns.push(Arc::new(Int64Array::from(values)));
                     }
                     for values in status_values {
@@ -312,11 +316,11 @@ pub(super) fn write(
 }
 
 /// The input's schema with the development partitions' extra columns: the
-/// fold column first when `single`, then the membership columns (text).
-fn with_fold_columns(schema: &SchemaRef, names: &[String], single: bool) -> SchemaRef {
+/// `ints` fold columns first, then the membership columns (text).
+fn with_fold_columns(schema: &SchemaRef, names: &[String], ints: usize) -> SchemaRef {
     let mut fields: Vec<Field> = schema.fields().iter().map(|f| f.as_ref().clone()).collect();
     for (i, name) in names.iter().enumerate() {
-        let t = if single && i == 0 { DataType::Int64 } else { DataType::Utf8 };
+        let t = if i < ints { DataType::Int64 } else { DataType::Utf8 };
         fields.push(Field::new(name, t, true));
     }
     Arc::new(Schema::new_with_metadata(fields, schema.metadata().clone()))

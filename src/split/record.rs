@@ -42,7 +42,19 @@ pub(super) fn record(
     mut written: Written,
     source_summary: FileSummary,
 ) -> Recorded {
-    let Assignment { partitions, partition, time_plan, gap, counts, short, mut warnings, folds, membership, .. } = plan;
+    let Assignment {
+        partitions,
+        partition,
+        time_plan,
+        gap,
+        counts,
+        short,
+        mut warnings,
+        folds,
+        repeats,
+        membership,
+        ..
+    } = plan;
     let (stratify, group, key, label) = (&opened.stratify, &opened.group, &opened.key, &opened.label);
     let (format, output_format, spec, table) = (opened.format, opened.output_format, &opened.spec, &opened.table);
     let (rows, strata, k) = (facts.rows, &facts.strata, partitions.len());
@@ -162,6 +174,17 @@ pub(super) fn record(
                 per_stratum.insert(strata.labels[s].clone(), v);
             }
         }
+        if let Some(sets) = &facts.label_sets {
+            for (l, name) in cfg.stratify_labels.iter().enumerate() {
+                let mut per = vec![0u64; *kk as usize];
+                for (row, &f) in fold.iter().enumerate() {
+                    if f != NO_FOLD && sets[row] >> l & 1 == 1 {
+                        per[f as usize] += 1;
+                    }
+                }
+                per_stratum.insert(format!("{name}=1"), per);
+            }
+        }
         let windows = matches!(kind, FoldKind::SlidingWindow | FoldKind::ExpandingWindow);
         let (mut names, mut splits, mut paths) = (Vec::new(), Vec::new(), Vec::new());
         if let Some(m) = membership.as_ref() {
@@ -189,6 +212,7 @@ pub(super) fn record(
             k: *kk,
             column: (!windows).then(|| cfg.fold_column.clone()),
             blocks,
+            repeat_columns: (1..=repeats.len()).map(|r| folds::repeat_column(&cfg.fold_column, r)).collect(),
             membership: names,
             splits,
             paths,
@@ -208,6 +232,19 @@ pub(super) fn record(
         }),
         _ => None,
     };
+    // Positives of each multilabel column per partition.
+    let mut label_positives = BTreeMap::new();
+    if let Some(sets) = &facts.label_sets {
+        for (l, name) in cfg.stratify_labels.iter().enumerate() {
+            let mut per = vec![0u64; k];
+            for (&m, &p) in sets.iter().zip(&partition) {
+                if p != DROPPED && m >> l & 1 == 1 {
+                    per[p as usize] += 1;
+                }
+            }
+            label_positives.insert(name.clone(), per);
+        }
+    }
     let manifest = Manifest {
         format_version: manifest::FORMAT_VERSION,
         assignment_version: manifest::ASSIGNMENT_VERSION,
@@ -231,6 +268,7 @@ pub(super) fn record(
             seed: cfg.seed,
             stratify: stratify.clone(),
             bins: cfg.bins as u32,
+            stratify_labels: cfg.stratify_labels.clone(),
             key: key.clone(),
             label: label.clone(),
             group: group.clone(),
@@ -257,6 +295,7 @@ pub(super) fn record(
             short_count: Some(short.len() as u64),
             short: short.into_iter().take(LISTED_SHORT).collect(),
         }),
+        label_positives,
         groups: facts.groups.as_ref().map(|g| GroupRecord {
             columns: group.clone(),
             count: g.len() as u64,

@@ -208,3 +208,105 @@ fn check_compares_the_label_end_with_until() {
     let j = r.json();
     assert_eq!(j["files"][0]["findings"]["time"]["count"].as_u64(), Some(1), "{j}");
 }
+
+/// `--repeats 3` with stratified 4-fold: three fold columns from three
+/// derived seeds, each a valid stratified design (every development row
+/// validated once per repeat, every class within one row across folds),
+/// the repeats different, and twelve membership columns in order.
+#[test]
+fn repeated_folds_are_each_a_valid_design() {
+    let t = Test::new();
+    t.demo();
+    t.ok(&[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "out",
+        "--stratify",
+        "bloom_class",
+        "--folds",
+        "4",
+        "--repeats",
+        "3",
+    ]);
+    let m = manifest(&t.path("out"));
+    let cols: Vec<&str> =
+        m["folds"]["repeat_columns"].as_sequence().unwrap().iter().map(|c| c.as_str().unwrap()).collect();
+    assert_eq!(cols, ["fold_r2", "fold_r3"]);
+    assert_eq!(m["folds"]["membership"].as_sequence().unwrap().len(), 12);
+    // The development rows: train and validation.
+    let path = t.path("out/train.csv");
+    let names = header(&path);
+    let at = |c: &str| names.iter().position(|n| n == c).unwrap();
+    let mut rows = records(&path);
+    rows.extend(records(&t.path("out/validation.csv")));
+    let class = at("bloom_class");
+    let mut designs = Vec::new();
+    for (r, column) in ["fold", "fold_r2", "fold_r3"].iter().enumerate() {
+        let fold: Vec<usize> = rows.iter().map(|row| row[at(column)].parse().unwrap()).collect();
+        for c in ["none", "low", "moderate", "high"] {
+            let mut per = [0usize; 4];
+            for (row, &f) in rows.iter().zip(&fold) {
+                if row[class] == c {
+                    per[f] += 1;
+                }
+            }
+            assert!(per.iter().max().unwrap() - per.iter().min().unwrap() <= 1, "repeat {r} class {c}: {per:?}");
+        }
+        // The membership columns of this repeat agree with its fold column.
+        for s in 0..4 {
+            let member = at(&format!("fold_{}", r * 4 + s));
+            for (row, &f) in rows.iter().zip(&fold) {
+                assert_eq!(row[member] == "validate", f == s, "repeat {r} split {s}");
+            }
+        }
+        designs.push(fold);
+    }
+    assert_ne!(designs[0], designs[1]);
+    assert_ne!(designs[1], designs[2]);
+    t.ok(&["verify", "out"]);
+    t.run(&[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "bad",
+        "--order-by",
+        "sample_time",
+        "--folds",
+        "3",
+        "--repeats",
+        "2",
+    ])
+    .fails_with(&["--repeats needs --folds K without --order-by"]);
+}
+
+/// Every new design gives the same bytes on one thread and on four.
+#[test]
+fn new_designs_do_not_depend_on_the_thread_count() {
+    let runs: Vec<_> = ["1", "4"]
+        .iter()
+        .map(|threads| {
+            let t = Test::new().env("RAYON_NUM_THREADS", threads);
+            t.demo();
+            let designs: [&[&str]; 5] = [
+                &["--order-by", "sample_time", "--until", "sample_time", "--folds", "cpcv:5,2", "--embargo", "1d"],
+                &["--order-by", "sample_time", "--window", "expanding:300", "--test-size", "200"],
+                &["--stratify", "bloom_class", "--folds", "3", "--repeats", "2", "--copies", "together-near"],
+                &["--group", "river", "--folds", "2"],
+                &["--stratify", "station,bloom_class"],
+            ];
+            designs
+                .iter()
+                .enumerate()
+                .map(|(i, extra)| {
+                    let out = format!("d{i}");
+                    let mut args = vec!["split", "water-quality.csv", "--out", out.as_str(), "--min-share", "0"];
+                    args.extend_from_slice(extra);
+                    t.ok(&args);
+                    tree(&t.path(&out))
+                })
+                .collect::<Vec<_>>()
+        })
+        .collect();
+    assert!(runs[0] == runs[1], "outputs differ between 1 and 4 threads");
+}

@@ -229,3 +229,88 @@ fn copies_kept_together_leave_no_copy_on_both_sides() {
     }
     t.ok(&["verify", "near"]);
 }
+
+/// 5,000 samples tagged with 20 indicator columns (which contaminants were
+/// found), of very different frequencies: tag l is found with probability
+/// 0.3 x 0.8^l, from 30% down to under 0.5%.
+fn tagged(t: &Test) -> Vec<String> {
+    let tags: Vec<String> = (0..20).map(|l| format!("found_{l:02}")).collect();
+    let mut csv = format!("sample,station,{}\n", tags.join(","));
+    let mut state = 0x2545_f491_4f6c_dd1du64;
+    for i in 0..5000 {
+        csv.push_str(&format!("{i},ST{:02}", i % 37));
+        for l in 0..20 {
+            state ^= state << 13;
+            state ^= state >> 7;
+            state ^= state << 17;
+            let p = 0.3 * 0.8f64.powi(l);
+            let u = (state >> 11) as f64 / (1u64 << 53) as f64;
+            csv.push_str(if u < p { ",1" } else { ",0" });
+        }
+        csv.push('\n');
+    }
+    t.write("tagged.csv", csv);
+    tags
+}
+
+/// Per tag and fold, positives among the train file's rows.
+fn tag_fold_counts(t: &Test, out: &str, tags: &[String]) -> (Vec<Vec<u64>>, Vec<u64>) {
+    let path = t.path(&format!("{out}/train.csv"));
+    let names = header(&path);
+    let fold = names.iter().position(|c| c == "fold").unwrap();
+    let at: Vec<usize> = tags.iter().map(|tag| names.iter().position(|c| c == tag).unwrap()).collect();
+    let mut counts = vec![vec![0u64; 5]; tags.len()];
+    let mut totals = vec![0u64; tags.len()];
+    for r in records(&path) {
+        let f: usize = r[fold].parse().unwrap();
+        for (l, &i) in at.iter().enumerate() {
+            if r[i] == "1" {
+                counts[l][f] += 1;
+                totals[l] += 1;
+            }
+        }
+    }
+    (counts, totals)
+}
+
+/// Multilabel folds by iterative stratification (Sechidis, Tsoumakas and
+/// Vlahavas 2011): every tag's positives in every fold within one row of
+/// its share, and every tag with at least 5 positives in every fold; plain
+/// random folds on the same rows miss both.
+#[test]
+fn multilabel_folds_keep_every_tag_within_one_row() {
+    let t = Test::new();
+    let tags = tagged(&t);
+    let list = tags.join(",");
+    t.ok(&["split", "tagged.csv", "--out", "ml", "--ratios", "80,20", "--stratify-labels", &list, "--folds", "5"]);
+    let (counts, totals) = tag_fold_counts(&t, "ml", &tags);
+    for (l, per) in counts.iter().enumerate() {
+        for &c in per {
+            assert!((c as f64 - totals[l] as f64 / 5.0).abs() < 1.0, "{}: {per:?} of {}", tags[l], totals[l]);
+        }
+        if totals[l] >= 5 {
+            assert!(per.iter().all(|&c| c > 0), "{}: {per:?}", tags[l]);
+        }
+    }
+    // The partitions too: every tag's positives within one row of 80/20.
+    let m = manifest(&t.path("ml"));
+    assert_eq!(m["folds"]["kind"].as_str(), Some("multilabel"));
+    for tag in &tags {
+        let per = m["label_positives"][tag.as_str()].as_sequence().unwrap();
+        let (train, test) = (per[0].as_u64().unwrap() as f64, per[1].as_u64().unwrap() as f64);
+        assert!((train - 0.8 * (train + test)).abs() < 1.0, "{tag}: {train} / {test}");
+    }
+    t.ok(&["verify", "ml"]);
+    // Plain k-fold on the same rows: some tag ends more than a row off its share.
+    t.ok(&["split", "tagged.csv", "--out", "plain", "--ratios", "80,20", "--folds", "5"]);
+    let (counts, totals) = tag_fold_counts(&t, "plain", &tags);
+    let worst = counts
+        .iter()
+        .enumerate()
+        .flat_map(|(l, per)| {
+            let share = totals[l] as f64 / 5.0;
+            per.iter().map(move |&c| (c as f64 - share).abs())
+        })
+        .fold(0.0f64, f64::max);
+    assert!(worst >= 1.0, "random folds happened to be as good: worst {worst}");
+}

@@ -114,6 +114,55 @@ const SCRIPT: &[&[&str]] = &[
     &["split", "water-quality.csv", "--out", "lines", "--output-format", "jsonl", "--label", "ph"],
     &["split", "lines/train.jsonl", "--out", "from-lines", "--group", "station"],
     &["split", "water-quality.csv", "--out", "level", "--label", "ph", "--seed", "2", "--json"],
+    // Assignment version 2: every method pinned.
+    &["split", "water-quality.csv", "--out", "fine", "--stratify", "station,bloom_class", "--json"],
+    &[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "purged",
+        "--order-by",
+        "sample_time",
+        "--folds",
+        "purged:4",
+        "--embargo",
+        "2d",
+    ],
+    &["split", "water-quality.csv", "--out", "cpcv", "--order-by", "sample_time", "--gap", "1d", "--folds", "cpcv:5,2"],
+    &[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "window",
+        "--order-by",
+        "sample_time",
+        "--window",
+        "sliding:500",
+        "--test-size",
+        "200",
+        "--step",
+        "300",
+        "--window-gap",
+        "10",
+    ],
+    &[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "repeats",
+        "--stratify",
+        "bloom_class",
+        "--folds",
+        "3",
+        "--repeats",
+        "2",
+        "--copies",
+        "together-near",
+    ],
+    &["split", "tags.csv", "--out", "tags", "--stratify-labels", "t1,t2,t3", "--folds", "4", "--json"],
+    &["split", "tags.csv", "--out", "tags-null", "--label", "t0", "--allow-null-label", "--copies", "apart"],
+    &["show", "cpcv"],
+    &["show", "window"],
     &["verify", "plain", "--json"],
     &["verify", "strat"],
     &["verify", "grouped", "--deep", "--json"],
@@ -216,6 +265,14 @@ fn pinned_outputs() -> String {
     let t = Test::new();
     t.demo();
     t.write("key.hex", format!("{KEY}\n"));
+    // Samples with four 0/1 tags of falling frequency (t0 missing now and then: a label kept with --allow-null-label).
+    let mut tags = String::from("sample,station,t0,t1,t2,t3\n");
+    for i in 0..400u32 {
+        let bit = |l: u32| u32::from((i * (2 * l + 3) + l).is_multiple_of(3 + 2 * l));
+        let t0 = if i % 53 == 7 { String::new() } else { bit(0).to_string() };
+        tags.push_str(&format!("{i},ST{:02},{t0},{},{},{}\n", i % 13, bit(1), bit(2), bit(3)));
+    }
+    t.write("tags.csv", tags);
     let mut before = Vec::new();
     files_of(t.dir.path(), "", &mut before);
     let mut text = String::new();
