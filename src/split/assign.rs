@@ -2,7 +2,7 @@
 //! Time order, a stable hash, groups, or strata decide, in that order of
 //! precedence; folds are then dealt over the development rows.
 
-use super::config::{Opened, SplitConfig};
+use super::config::{Copies, Opened, SplitConfig};
 use super::folds;
 use super::multilabel;
 use super::pass_one::RowFacts;
@@ -11,6 +11,7 @@ use super::rounding;
 use super::strata::Strata;
 use super::structure::{self, parse_gap, TimePlan};
 use super::DROPPED;
+use crate::digest::RowDigest;
 use crate::error::{Error, Result};
 use crate::rng::SplitRng;
 use crate::seal::manifest::{FoldKind, Partition, ShortStratum};
@@ -85,7 +86,8 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
     } else if let Some(units) = units {
         structure::assign_grouped(units, strata, &cfg.ratios, cfg.seed)
     } else {
-        stratified(strata, &cfg.ratios, cfg.seed).partition
+        let ranks = facts.rank_digests.as_deref().map(|d| (d, cfg.copies == Copies::Apart));
+        stratified(strata, &cfg.ratios, cfg.seed, ranks).partition
     };
     let counts = tally(strata, &partition, k);
     let totals: Vec<u64> = (0..k).map(|p| counts.iter().map(|c| c[p]).sum::<u64>()).collect();
@@ -290,10 +292,13 @@ pub(super) struct Plan {
 /// Decides every row's partition. One stratum is shared out by largest
 /// remainder; several by controlled rounding of the whole strata x
 /// partitions table (see [`rounding`]), so that strata and partition totals
-/// are both within one row of their exact shares. Each stratum's rows (in
-/// input order) are then shuffled once and dealt out train first, then
-/// validation, then test.
-pub(super) fn stratified(strata: &Strata, ratios: &Ratios, seed: u64) -> Plan {
+/// are both within one row of their exact shares. Each stratum's rows are
+/// then put in order and dealt out train first, then validation, then test:
+/// ranked by a keyed hash of their features digests (`ranks`, with whether
+/// the row number is hashed too, for copies placed apart; ties, which only
+/// copies make, by row), so that an engine without a sequential step can
+/// reproduce the split from the counts; without digests, shuffled once.
+pub(super) fn stratified(strata: &Strata, ratios: &Ratios, seed: u64, ranks: Option<(&[RowDigest], bool)>) -> Plan {
     let n_strata = strata.sizes.len();
     // Rows grouped by stratum, in input order within each (a counting sort).
     let mut offsets = vec![0usize; n_strata + 1];
@@ -315,10 +320,14 @@ pub(super) fn stratified(strata: &Strata, ratios: &Ratios, seed: u64) -> Plan {
         strata.sizes.iter().map(|&n| ratios.allocate(n, &mut vec![0; ratios.partitions().len()])).collect()
     };
     let mut rng = SplitRng::new(seed);
+    let keys: Option<Vec<u64>> = ranks.map(|(digests, with_row)| rank_keys(digests, with_row, seed));
     let mut partition = vec![0u8; strata.row_stratum.len()];
     for (s, c) in counts.iter().enumerate() {
         let rows = &mut grouped[offsets[s]..offsets[s + 1]];
-        rng.shuffle(rows);
+        match &keys {
+            Some(keys) => rows.sort_unstable_by_key(|&r| (keys[r as usize], r)),
+            None => rng.shuffle(rows),
+        }
         let mut at = 0usize;
         for (p, &k) in c.iter().enumerate() {
             for &row in &rows[at..at + k as usize] {
@@ -328,4 +337,25 @@ pub(super) fn stratified(strata: &Strata, ratios: &Ratios, seed: u64) -> Plan {
         }
     }
     Plan { partition }
+}
+
+/// Every row's rank key: the first 8 bytes (little-endian) of BLAKE3 keyed
+/// with `derive_key("cleave 2026-12-04 row rank v1", seed)` over its
+/// features digest, followed with `with_row` by its 1-based row number as
+/// 8 little-endian bytes (so that copies are ranked apart).
+pub(super) fn rank_keys(digests: &[RowDigest], with_row: bool, seed: u64) -> Vec<u64> {
+    use rayon::prelude::*;
+    let key = blake3::derive_key("cleave 2026-12-04 row rank v1", &seed.to_le_bytes());
+    digests
+        .par_iter()
+        .enumerate()
+        .with_min_len(4096)
+        .map(|(i, d)| {
+            let mut message = [0u8; 24];
+            message[..16].copy_from_slice(d);
+            message[16..].copy_from_slice(&(i as u64 + 1).to_le_bytes());
+            let bytes: &[u8] = if with_row { &message } else { &message[..16] };
+            u64::from_le_bytes(blake3::keyed_hash(&key, bytes).as_bytes()[..8].try_into().expect("8 bytes"))
+        })
+        .collect()
 }

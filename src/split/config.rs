@@ -185,7 +185,7 @@ pub(super) fn open(cfg: &SplitConfig) -> Result<Opened> {
     pass_one_columns.dedup();
     // Pass one reads every key column (for copies, or stable row keys): no
     // text is kept then, the file is read again.
-    let every_key = (cfg.stable && cfg.group.is_empty()) || cfg.copies != Copies::Apart;
+    let every_key = (cfg.stable && cfg.group.is_empty()) || digests_in_pass_one(cfg);
     let keep = (format == Format::Csv && !every_key).then_some(pass_one_columns.as_slice());
     let (table, kept) = Table::open_keeping(&cfg.input, format, &TypeHints::new(), keep)?;
     let schema = table.schema();
@@ -298,6 +298,13 @@ pub(super) fn open(cfg: &SplitConfig) -> Result<Opened> {
         key,
         spec,
     })
+}
+
+/// Whether pass one takes every row's features digest: to keep copies
+/// together, and to rank the rows of a stratum (splits that are not in time
+/// order, stable or grouped).
+pub(super) fn digests_in_pass_one(cfg: &SplitConfig) -> bool {
+    cfg.copies != Copies::Apart || (cfg.order_by.is_none() && !cfg.stable && cfg.group.is_empty())
 }
 
 /// Resolves names against the table, in the order given, without repeats.

@@ -154,7 +154,7 @@ mod tests {
         ) {
             let ratios = Ratios::parse(shares).unwrap();
             let strata = strata_of(&sizes, seed ^ 1);
-            let plan = stratified(&strata, &ratios, seed);
+            let plan = stratified(&strata, &ratios, seed, None);
             prop_assert_eq!(plan.partition.len() as u64, sizes.iter().sum::<u64>());
             for (s, &n) in sizes.iter().enumerate() {
                 let mut got = vec![0u64; ratios.partitions().len()];
@@ -175,7 +175,7 @@ mod tests {
         fn same_seed_same_plan(sizes in proptest::collection::vec(1u64..100, 1..5), seed in any::<u64>()) {
             let ratios = Ratios::parse("70,15,15").unwrap();
             let strata = strata_of(&sizes, 3);
-            prop_assert_eq!(stratified(&strata, &ratios, seed).partition, stratified(&strata, &ratios, seed).partition);
+            prop_assert_eq!(stratified(&strata, &ratios, seed, None).partition, stratified(&strata, &ratios, seed, None).partition);
         }
     }
 }

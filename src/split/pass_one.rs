@@ -36,6 +36,9 @@ pub(super) struct RowFacts {
     /// near-copies, loose) digests. `None` when every unit would be a group
     /// or a single row.
     pub(super) units: Option<Groups>,
+    /// Every row's features digest, when pass one took them: stratified
+    /// splits rank the rows of a stratum by a keyed hash of it.
+    pub(super) rank_digests: Option<Vec<RowDigest>>,
     /// Null values per label column (with `--allow-null-label`; without it
     /// a null label is an error).
     pub(super) null_labels: Vec<(String, u64)>,
@@ -60,7 +63,9 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     needed.sort();
     needed.dedup();
     let stable_rows = cfg.stable && group.is_empty();
-    let copies = cfg.copies != Copies::Apart;
+    // Features digests of every row: for copies, and for the rank of rows
+    // within a stratum (stratified and plain splits).
+    let copies = super::config::digests_in_pass_one(cfg);
     if stable_rows || copies {
         needed.extend(spec.columns());
         needed.sort();
@@ -266,8 +271,10 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
         let by = if cfg.copies == Copies::TogetherNear { &near_keys } else { &copy_keys };
         keys.extend(by.iter().map(|&(d, _)| d));
     }
-    let units = copies.then(|| copy_units(rows as usize, groups.as_ref(), copy_keys, near_keys)).flatten();
-    Ok(RowFacts { rows, strata, groups, times, ends, label_sets, stable_keys, units, null_labels })
+    let rank_digests = copies.then(|| copy_keys.iter().map(|&(d, _)| d).collect::<Vec<_>>());
+    let joined = cfg.copies != Copies::Apart;
+    let units = joined.then(|| copy_units(rows as usize, groups.as_ref(), copy_keys, near_keys)).flatten();
+    Ok(RowFacts { rows, strata, groups, times, ends, label_sets, stable_keys, units, rank_digests, null_labels })
 }
 
 /// The union of the groups and of the rows sharing a features (or loose)

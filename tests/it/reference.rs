@@ -88,3 +88,8 @@ fn flights_grouped_by_aircraft_are_refused_or_meet_their_shares() {
 fn the_readme_fold_loop_gives_the_manifest_splits_in_scikit_learn() {
     reference("fold_loops");
 }
+
+#[test]
+fn a_stratified_split_is_reproduced_from_counts_and_rank_cutoffs() {
+    reference("rank_cutoffs");
+}

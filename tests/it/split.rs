@@ -224,15 +224,15 @@ fn golden_demo_split_is_stable() {
     assert_eq!(
         digests,
         [
-            "b09b0a25bab210df132d75bacbcdf34e5e065b9ca447d65296bb06e97eb2510d",
-            "73c23f9b0656f4998e65d4c061f53da78fc6fb2bade707c0c7d9e7ecead6892c",
-            "00b8dd17bf56c38e29b8e85493c612d9612c34d6da563eedabe8b940872ad179",
+            "1fd05644a1a7f89aa90c49a567c2f2c446bce5dabc916e461a9213e377dab593",
+            "eb9ddcf39ccd7d8d3a0059c2593658910da15937772d88868b35b3d80da99771",
+            "bf452ab5cfaf3501a40473b63dbb13f8025dd0ff5b51ad671c34d8072d2201a2",
         ]
     );
     let test_csv = std::fs::read(t.path("out/test.csv")).unwrap();
     assert_eq!(
         blake3::hash(&test_csv).to_hex().as_str(),
-        "a88620b7bd8ecdce66664bb0b89b9baa91b0c89f361a6f54b559fb2bac273599"
+        "c706ebb00b1eb4b76f2bc3217a9c8165cde349b7ee02d37146506a3e782792ea"
     );
 }
 

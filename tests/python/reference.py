@@ -690,6 +690,45 @@ def check_fold_loops(binary, work):
     print("fold loops:", {n: len(manifest(os.path.join(work, n))["folds"]["splits"]) for n in ("rolling", "kfold")})
 
 
+def check_rank_cutoffs(binary, work):
+    """Reproduces a stratified split without any sequential step, as a distributed engine would:
+    each row's rank key is a keyed BLAKE3 hash of its features digest (docs/format.md, "Rows"),
+    computed here by this file's own encoding; with one count per stratum and partition read off the
+    manifest, each stratum's rows sorted by (key, row) and cut at those counts give exactly
+    cleave's partitions."""
+    import struct
+
+    shutil.copy(os.path.join(FIXTURES, "water-quality.csv"), work)
+    seed = 11
+    cleave(binary, "split", "water-quality.csv", "--out", "out", "--label", "bloom_class", "--stratify",
+           "bloom_class", "--seed", str(seed), cwd=work)
+    m = manifest(os.path.join(work, "out"))
+    types = {c["name"]: c["type"] for c in m["source"]["columns"]}
+    features, labels = m["digest"]["features"], m["digest"]["labels"]
+    header, rows = read_csv(os.path.join(work, "water-quality.csv"))
+    key = blake3.blake3(seed.to_bytes(8, "little"), derive_key_context="cleave 2026-12-04 row rank v1").digest()
+    ci = header.index("bloom_class")
+    by_stratum = {}
+    for i, r in enumerate(rows):
+        d_row, d_feat, _, _ = row_digests(header, types, r, features, labels)
+        rank = struct.unpack("<Q", blake3.blake3(d_feat, key=key).digest()[:8])[0]
+        by_stratum.setdefault(r[ci], []).append((rank, i, d_row))
+    expected = {p["name"]: [] for p in m["partitions"]}
+    for value, members in by_stratum.items():
+        members.sort()
+        at = 0
+        for p in m["partitions"]:
+            n = p["strata"][f"bloom_class={value}"]
+            expected[p["name"]].extend(d for _, _, d in members[at:at + n])
+            at += n
+        assert at == len(members)
+    for p in m["partitions"]:
+        h, prow = read_csv(os.path.join(work, "out", p["file"]))
+        got = sorted(row_digests(h, types, r, features, labels)[0] for r in prow)
+        assert got == sorted(expected[p["name"]]), p["name"]
+    print("rank cut-offs reproduce", {p["name"]: p["rows"] for p in m["partitions"]})
+
+
 if __name__ == "__main__":
     check, binary, work = sys.argv[1], sys.argv[2], sys.argv[3]
     globals()[f"check_{check}" if check != "make_vectors" else check](binary, work)
