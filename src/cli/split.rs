@@ -109,6 +109,12 @@ pub struct Args {
     /// Refuse a split in which a partition ends with less than this part of its asked share (0 to 1).
     #[arg(long, default_value_t = 0.5, value_name = "PART", value_parser = parse_min_share)]
     min_share: f64,
+    /// Split with every assignment option of an earlier split (its folder or manifest): the same design on a refreshed file. Refused for a manifest of another assignment version.
+    #[arg(long, value_name = "DIR", conflicts_with_all = [
+        "ratios", "seed", "stratify", "stratify_labels", "bins", "key", "label", "group", "order_by", "gap", "stable",
+        "folds", "window", "repeats", "fold_column", "until", "embargo", "copies", "allow_null_label", "output_format", "compression",
+    ])]
+    like: Option<PathBuf>,
     /// Print one JSON document instead of text.
     #[arg(long)]
     json: bool,
@@ -158,8 +164,69 @@ fn parse_compression(s: &str) -> Result<(parquet::basic::Compression, String), c
     crate::io::parse_compression(s).map(|codec| (codec, s.to_ascii_lowercase()))
 }
 
-pub fn run(args: Args) -> anyhow::Result<Outcome> {
+/// Takes every assignment option of the split at `path` into `args`.
+///
+/// # Errors
+/// An unreadable manifest, or one of another assignment version.
+fn take_like(args: &mut Args, path: &std::path::Path) -> anyhow::Result<()> {
+    use crate::seal::manifest::{self, ASSIGNMENT_VERSION};
+    let loaded = manifest::load(path)?;
+    let m = &loaded.manifest;
+    if m.assignment_version != ASSIGNMENT_VERSION {
+        return Err(crate::Error::Options(format!(
+            "--like `{}`: that split follows assignment version {}, this cleave assigns rows by version {ASSIGNMENT_VERSION}; its partitions cannot be made again (split without --like to make a new design)",
+            path.display(),
+            m.assignment_version
+        ))
+        .into());
+    }
+    let o = &m.options;
+    args.ratios = o.ratios.join(",");
+    args.seed = o.seed;
+    args.stratify = o.stratify.clone();
+    args.stratify_labels = o.stratify_labels.clone();
+    args.bins = o.bins as usize;
+    args.key = Some(o.key.clone());
+    args.label = o.label.clone();
+    args.group = o.group.clone();
+    args.order_by = o.order_by.clone();
+    args.gap = o.gap.clone();
+    args.stable = o.stable;
+    args.allow_null_label = o.allow_null_label;
+    args.copies = match &o.copies {
+        Some(c) => split::Copies::parse(c)?,
+        None => split::Copies::Apart,
+    };
+    args.output_format = Some(o.output_format);
+    args.compression = o.compression.as_deref().map(parse_compression).transpose()?;
+    if let Some(f) = &m.folds {
+        if let Some(c) = &f.column {
+            args.fold_column = c.clone();
+        }
+        args.until = f.until.clone();
+        args.embargo = f.embargo.clone();
+        args.repeats = f.repeat_columns.len() as u32 + 1;
+    }
+    match o.folds.as_deref() {
+        Some(text) if text.starts_with("sliding:") || text.starts_with("expanding:") => {
+            let (kind, sizes) = text.split_once(':').expect("checked");
+            let n: Vec<u64> = sizes.split(',').filter_map(|x| x.parse().ok()).collect();
+            let [train, test, step, gap] = n[..] else {
+                return Err(crate::Error::Options(format!("--like: the window design `{text}` does not read")).into());
+            };
+            args.window = Some(format!("{kind}:{train}"));
+            (args.test_size, args.step, args.window_gap) = (Some(test), Some(step), gap);
+        }
+        other => args.folds = other.map(String::from),
+    }
+    Ok(())
+}
+
+pub fn run(mut args: Args) -> anyhow::Result<Outcome> {
     crate::interrupt::install();
+    if let Some(like) = args.like.clone() {
+        take_like(&mut args, &like)?;
+    }
     let ratios = Ratios::parse(&args.ratios)?;
     let folds = match (&args.window, args.folds.as_deref()) {
         (Some(w), _) => Some(parse_window(w, args.test_size.unwrap_or(0), args.step, args.window_gap)?),

@@ -310,3 +310,59 @@ fn new_designs_do_not_depend_on_the_thread_count() {
         .collect();
     assert!(runs[0] == runs[1], "outputs differ between 1 and 4 threads");
 }
+
+/// `--like` makes the same design again: byte for byte on the same file,
+/// and the same options on a refreshed one; a manifest of assignment
+/// version 1 (no `assignment_version` field) is refused, naming the version.
+#[test]
+fn like_repeats_a_design_and_refuses_an_older_assignment() {
+    let t = Test::new();
+    t.demo();
+    t.ok(&[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "first",
+        "--stratify",
+        "bloom_class",
+        "--label",
+        "bloom_class",
+        "--group",
+        "river",
+        "--folds",
+        "3",
+        "--repeats",
+        "2",
+        "--output-format",
+        "parquet",
+        "--seed",
+        "9",
+        "--copies",
+        "together-near",
+    ]);
+    t.ok(&["split", "water-quality.csv", "--out", "again", "--like", "first"]);
+    assert_eq!(tree(&t.path("first")), tree(&t.path("again")));
+    t.ok(&[
+        "split",
+        "water-quality.csv",
+        "--out",
+        "windows",
+        "--order-by",
+        "sample_time",
+        "--window",
+        "expanding:400",
+        "--test-size",
+        "100",
+        "--step",
+        "150",
+    ]);
+    t.ok(&["split", "water-quality.csv", "--out", "windows-again", "--like", "windows/manifest.yaml"]);
+    assert_eq!(tree(&t.path("windows")), tree(&t.path("windows-again")));
+    // An option of the design beside --like is refused by the parser.
+    assert_eq!(t.run(&["split", "water-quality.csv", "--out", "x", "--like", "first", "--seed", "1"]).code, 2);
+    // A version 1 manifest.
+    reseal(&t.path("first/manifest.yaml"), |text| text.replace("assignment_version: 2\n", ""));
+    t.run(&["split", "water-quality.csv", "--out", "old", "--like", "first"])
+        .fails_with(&["assignment version 1", "version 2"]);
+    assert!(!t.path("old").exists());
+}
