@@ -225,32 +225,6 @@ pub(super) fn open(cfg: &SplitConfig) -> Result<Opened> {
             )));
         }
     }
-    let stratify_labels = resolve_columns(&table, &cfg.stratify_labels)?;
-    for l in &stratify_labels {
-        let t = crate::digest::require_supported(&cfg.input, schema.field_with_name(l).expect("resolved above"))?;
-        if !matches!(t, ColumnType::Integer | ColumnType::Boolean) {
-            return Err(Error::column(
-                &cfg.input,
-                l,
-                "holds values other than 0/1 or booleans; --stratify-labels takes indicator columns",
-            ));
-        }
-    }
-    if let Some((_, text)) = &cfg.folds {
-        let splits = match cfg.folds.as_ref().map(|f| f.0) {
-            Some(FoldCount::K(k)) | Some(FoldCount::Purged(k)) => k as usize,
-            Some(FoldCount::Cpcv { n, k }) => super::folds::binomial(n, k) as usize,
-            _ => 0,
-        };
-        for s in 0..splits.max(if text.starts_with("sliding") || text.starts_with("expanding") { 1 } else { 0 }) {
-            let name = format!("{}_{s}", cfg.fold_column);
-            if schema.index_of(&name).is_ok() {
-                return Err(Error::Options(format!(
-                    "the input already has a column `{name}`, a name the membership columns need; name them otherwise with --fold-column"
-                )));
-            }
-        }
-    }
     let mut key = match &cfg.key {
         Some(k) => resolve_columns(&table, k)?,
         None => schema.fields().iter().map(|f| f.name().clone()).collect(),
