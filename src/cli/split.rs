@@ -224,6 +224,13 @@ fn take_like(args: &mut Args, path: &std::path::Path) -> anyhow::Result<()> {
 
 pub fn run(mut args: Args) -> anyhow::Result<Outcome> {
     crate::interrupt::install();
+    if args.out.as_os_str() == "-" {
+        return Err(crate::Error::Options(
+            "--out -: a split writes a folder of files, not a stream; give a folder name".into(),
+        )
+        .into());
+    }
+    crate::io::refuse_remote(&args.out)?;
     if let Some(like) = args.like.clone() {
         take_like(&mut args, &like)?;
     }

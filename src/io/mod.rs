@@ -43,12 +43,32 @@ pub use crate::format::{ColumnType, Format};
 /// # Errors
 /// When neither says.
 pub fn resolve_format(path: &Path, explicit: Option<Format>) -> Result<Format> {
+    refuse_remote(path)?;
     explicit.or_else(|| Format::from_path(path)).ok_or_else(|| {
         Error::Options(format!(
             "`{}`: cannot tell the format from the file name; pass --format (csv, parquet, arrow, jsonl)",
             path.display()
         ))
     })
+}
+
+/// Refuses a path with a URL scheme (`s3://`, `https://`, ...): cleave reads
+/// local files only.
+///
+/// # Errors
+/// A path of the form `scheme://...`.
+pub fn refuse_remote(path: &Path) -> Result<()> {
+    let text = path.to_string_lossy();
+    match text.split_once("://") {
+        Some((scheme, _))
+            if !scheme.is_empty() && scheme.bytes().all(|b| b.is_ascii_alphanumeric() || b"+.-".contains(&b)) =>
+        {
+            Err(Error::Options(format!(
+                "`{text}`: remote paths ({scheme}://) are not read; download the file and give its local path"
+            )))
+        }
+        _ => Ok(()),
+    }
 }
 
 /// Known column types by name, e.g. the sealed schema when re-reading a partition.
@@ -131,6 +151,22 @@ impl Table {
         let (schema, csv_types) = match format {
             Format::Csv => {
                 let (names, types, k) = csv::infer_keeping(path, &|name| hints.get(name).copied(), keep)?;
+                if let [only] = names.as_slice() {
+                    // One column whose name holds another separator: a file of
+                    // another dialect, never to be sealed as one column.
+                    if let Some(sep) = [';', '\t', '|'].into_iter().find(|&c| only.contains(c)) {
+                        let shown = if sep == '\t' { "a tab".to_string() } else { format!("`{sep}`") };
+                        return Err(Error::Malformed {
+                            path: path.to_path_buf(),
+                            line: Some(1),
+                            row: None,
+                            column: None,
+                            what: format!(
+                                "the header is one column holding {shown}: the file looks {shown}-separated; cleave reads comma-separated CSV (convert it, or export with commas)"
+                            ),
+                        });
+                    }
+                }
                 kept = k;
                 (csv::schema_for(&names, &types), types)
             }

@@ -459,8 +459,23 @@ impl Manifest {
             "# cleave split manifest: edit nothing; the last line is a checksum of every byte above it.\n",
         );
         let yaml = serde_norway::to_string(&body).expect("manifest types serialise");
+        // Lines of a block scalar (`|`, `|-`, `>`...) are text as they are.
+        let mut block: Option<usize> = None;
         for line in yaml.lines() {
-            text.push_str(&quote_dates(line));
+            let indent = line.len() - line.trim_start().len();
+            match block {
+                Some(i) if indent > i || line.trim().is_empty() => text.push_str(line),
+                _ => {
+                    block = None;
+                    let tail = line.trim_end().rsplit(' ').next().unwrap_or("");
+                    if tail.starts_with(['|', '>']) && tail.len() <= 3 {
+                        block = Some(indent);
+                        text.push_str(line);
+                    } else {
+                        text.push_str(&quote_dates(line));
+                    }
+                }
+            }
             text.push('\n');
         }
         let sum = blake3::hash(text.as_bytes()).to_hex().to_string();
@@ -479,28 +494,99 @@ impl Manifest {
     }
 }
 
-/// YAML 1.1 readers (PyYAML among them) turn an unquoted date or RFC 3339
-/// time into a date object; quote such values so that every reader sees text.
+/// YAML 1.1 readers (PyYAML among them) resolve more plain scalars than
+/// YAML 1.2 does: `yes`, `no`, `on`, `off`, `y`, `n` in their cases are
+/// booleans, `~` and `null` null, `0b101`, `0x1F`, `017`, `1_000` and
+/// sexagesimal `1:20` integers, `.5`-like and `1_000.5` floats, dates and
+/// times timestamps, `<<` a merge key and `=` a value key. The YAML emitter
+/// leaves those bare where YAML 1.2 sees text, so every such key or value
+/// is quoted here, and every reader sees text. Real booleans and numbers
+/// are written as `true`, `false` and plain decimals, which no rule here
+/// touches.
 fn quote_dates(line: &str) -> String {
-    let (head, value) = match line.rfind(": ") {
-        Some(p) => line.split_at(p + 2),
-        None => match line.trim_start().strip_prefix("- ") {
-            Some(v) => line.split_at(line.len() - v.len()),
-            None => return line.to_string(),
+    // Indentation and sequence dashes, then `key: value`, `key:` or a bare value.
+    let body = line.trim_start();
+    let mut at = line.len() - body.len();
+    while line[at..].starts_with("- ") {
+        at += 2;
+    }
+    let (lead, rest) = line.split_at(at);
+    let mut out = String::from(lead);
+    let (key, value) = match rest.find(": ") {
+        Some(p) if !rest.starts_with(['\'', '"']) => (Some(&rest[..p]), Some(&rest[p + 2..])),
+        _ => match rest.strip_suffix(':') {
+            Some(k) if !rest.starts_with(['\'', '"']) => (Some(k), None),
+            _ => (None, Some(rest)),
         },
     };
-    let b = value.as_bytes();
-    let looks_like_date = b.len() >= 10
-        && b[..4].iter().all(u8::is_ascii_digit)
-        && b[4] == b'-'
-        && b[5..7].iter().all(u8::is_ascii_digit)
-        && b[7] == b'-'
-        && !value.contains('\'');
-    if looks_like_date {
-        format!("{head}'{value}'")
-    } else {
-        line.to_string()
+    if let Some(k) = key {
+        out.push_str(&quoted_if_ambiguous(k));
+        out.push(':');
+        if value.is_some() {
+            out.push(' ');
+        }
     }
+    if let Some(v) = value {
+        out.push_str(&quoted_if_ambiguous(v));
+    }
+    out
+}
+
+/// `scalar` in single quotes when it is a plain scalar that YAML 1.1 would
+/// resolve to something other than text (see [`quote_dates`]).
+fn quoted_if_ambiguous(scalar: &str) -> String {
+    if scalar.is_empty() || scalar.starts_with(['\'', '"', '|', '>', '[', '{', '&', '*', '!']) {
+        return scalar.to_string();
+    }
+    if yaml11_not_text(scalar) {
+        format!("'{}'", scalar.replace('\'', "''"))
+    } else {
+        scalar.to_string()
+    }
+}
+
+/// Whether a YAML 1.1 reader resolves the plain scalar `s` to a boolean,
+/// null, number, timestamp, merge or value key (the YAML 1.1 type
+/// repository's regular expressions, written out; real `true`, `false` and
+/// decimal numbers as the emitter writes them excepted).
+fn yaml11_not_text(s: &str) -> bool {
+    const WORDS: &[&str] = &[
+        "y", "Y", "yes", "Yes", "YES", "n", "N", "no", "No", "NO", "on", "On", "ON", "off", "Off", "OFF", "~", "null",
+        "Null", "NULL", "<<", "=", ".inf", ".Inf", ".INF", "+.inf", "+.Inf", "+.INF", "-.inf", "-.Inf", "-.INF",
+        ".nan", ".NaN", ".NAN",
+    ];
+    if WORDS.contains(&s) {
+        return true;
+    }
+    let b = s.as_bytes();
+    let digits = |t: &str| !t.is_empty() && t.bytes().all(|c| c.is_ascii_digit() || c == b'_');
+    let unsigned = s.strip_prefix(['+', '-']).unwrap_or(s);
+    // Dates and times: YYYY-MM-DD at the start.
+    let date =
+        b.len() >= 10 && b[..4].iter().all(u8::is_ascii_digit) && b[4] == b'-' && b[5].is_ascii_digit() && b[7] == b'-'
+            || (b.len() >= 8 && b[..4].iter().all(u8::is_ascii_digit) && b[4] == b'-' && b[6] == b'-');
+    // Integers: binary, octal (leading 0), hex, with underscores; sexagesimal.
+    let int = unsigned
+        .strip_prefix("0b")
+        .is_some_and(|t| !t.is_empty() && t.bytes().all(|c| matches!(c, b'0' | b'1' | b'_')))
+        || unsigned
+            .strip_prefix("0x")
+            .is_some_and(|t| !t.is_empty() && t.bytes().all(|c| c.is_ascii_hexdigit() || c == b'_'))
+        || (unsigned.starts_with('0')
+            && unsigned.len() > 1
+            && unsigned.bytes().all(|c| matches!(c, b'0'..=b'7' | b'_')))
+        || (digits(unsigned) && unsigned.contains('_'))
+        || (unsigned.contains(':')
+            && unsigned.split(':').all(|part| {
+                digits(part)
+                    || part.split_once('.').is_some_and(|(a, f)| digits(a) && f.bytes().all(|c| c.is_ascii_digit()))
+            }));
+    // Floats with underscores, or `.5`-style (the emitter writes neither).
+    let float = unsigned.contains('_')
+        && unsigned
+            .split_once('.')
+            .is_some_and(|(a, f)| (a.is_empty() || digits(a)) && f.bytes().all(|c| c.is_ascii_digit() || c == b'_'));
+    date || int || float
 }
 
 /// A manifest as read from disk, with what its checksum says.

@@ -211,3 +211,32 @@ fn every_file_of_the_malformed_parquet_corpus_gives_one_error_or_a_verified_spli
         }
     }
 }
+
+/// A file of another dialect read as one column is refused, naming the
+/// likely separator, never sealed as one column.
+#[test]
+fn one_column_holding_another_separator_is_refused() {
+    let semi = b"station;ph;nitrate_mg_l\nALD-000;7.5;1.2\nBRE-001;7.1;0.9\n";
+    refuses("semi.csv", semi, &[], &["semi.csv", "line 1", "`;`-separated"]);
+    refuses("tabs.csv", b"station\tph\nALD\t7.5\n", &[], &["a tab-separated"]);
+    refuses("pipes.csv", b"station|ph\nALD|7.5\n", &[], &["`|`-separated"]);
+    // One real column is still a table.
+    let t = Test::new();
+    let mut one = String::from("station\n");
+    for i in 0..40 {
+        one.push_str(&format!("ST{i:02}\n"));
+    }
+    t.write("one.csv", one);
+    t.ok(&["split", "one.csv", "--out", "out"]);
+}
+
+/// Remote paths and `--out -` get one line each, and nothing is written.
+#[test]
+fn remote_paths_and_a_stream_output_are_refused() {
+    let t = Test::new();
+    t.demo();
+    t.run(&["split", "s3://bucket/samples.csv", "--out", "out"]).fails_with(&["s3://", "download the file"]);
+    t.run(&["split", "water-quality.csv", "--out", "-"]).fails_with(&["--out -", "folder"]);
+    t.run(&["split", "water-quality.csv", "--out", "https://host/out"]).fails_with(&["https://"]);
+    assert_eq!(t.entries(), ["water-quality.csv"]);
+}

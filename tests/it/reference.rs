@@ -93,3 +93,8 @@ fn the_readme_fold_loop_gives_the_manifest_splits_in_scikit_learn() {
 fn a_stratified_split_is_reproduced_from_counts_and_rank_cutoffs() {
     reference("rank_cutoffs");
 }
+
+#[test]
+fn column_names_yaml_readers_could_mistype_come_back_as_text() {
+    reference("yaml_names");
+}

@@ -729,6 +729,60 @@ def check_rank_cutoffs(binary, work):
     print("rank cut-offs reproduce", {p["name"]: p["rows"] for p in m["partitions"]})
 
 
+def check_yaml_names(binary, work):
+    """Column names that a YAML 1.1 reader would take for another type (the YAML 1.1 type
+    repository: booleans in every spelling, nulls, binary, octal, hex and sexagesimal integers,
+    floats with underscores, infinities, dates, the merge and value keys), drawn at random from
+    those classes: the manifest read by PyYAML's safe_load gives them back as the same strings, as
+    keys and as values, and it passes its schema."""
+    import random
+    import jsonschema
+
+    rng = random.Random(2026)
+    words = ["y", "Y", "yes", "Yes", "YES", "n", "N", "no", "No", "NO", "on", "On", "ON", "off", "Off", "OFF",
+             "true", "True", "FALSE", "~", "null", "Null", "NULL", "<<", "=", ".inf", "-.Inf", ".NaN"]
+    makers = [
+        lambda: rng.choice(words),
+        lambda: "0b" + "".join(rng.choice("01_") for _ in range(rng.randint(1, 6))),
+        lambda: "0x" + "".join(rng.choice("0123456789abcdefABCDEF_") for _ in range(rng.randint(1, 5))),
+        lambda: "0" + "".join(rng.choice("01234567_") for _ in range(rng.randint(1, 4))),
+        lambda: rng.choice(["", "+", "-"]) + "1_" + str(rng.randint(0, 999)),
+        lambda: ":".join(str(rng.randint(0, 59)) for _ in range(rng.randint(2, 3))),
+        lambda: str(rng.randint(1, 99)) + "_" + str(rng.randint(0, 9)) + "." + str(rng.randint(0, 99)),
+        lambda: f"{rng.randint(1900, 2099)}-{rng.randint(1, 12):02d}-{rng.randint(1, 28):02d}",
+        lambda: f"{rng.randint(1900, 2099)}-{rng.randint(1, 9)}-{rng.randint(1, 9)}",
+        lambda: str(rng.randint(0, 10**6)),
+        lambda: f"{rng.random():.3f}",
+    ]
+    with open(os.path.join(ROOT, "schemas", "manifest.schema.json")) as fh:
+        schema = json.load(fh)
+    for trial in range(30):
+        names = []
+        while len(names) < 6:
+            n = rng.choice(makers)()
+            if n not in names and n.strip() == n and n:
+                names.append(n)
+        folder = os.path.join(work, f"t{trial}")
+        os.makedirs(folder)
+        with open(os.path.join(folder, "in.csv"), "w", newline="") as fh:
+            w = csv.writer(fh)
+            w.writerow(names)
+            for i in range(120):
+                label = "" if i % 17 == 3 else str(i % 3)
+                w.writerow([str(i), str(i % 2), str((i // 2) % 2), label, f"{i * 0.5}", f"s{i % 4}"])
+        cleave(binary, "split", "in.csv", "--out", "out", f"--stratify-labels={names[1]},{names[2]}",
+               f"--label={names[3]}", "--allow-null-label", "--folds", "3", cwd=folder)
+        with open(os.path.join(folder, "out", "manifest.yaml")) as fh:
+            m = yaml.safe_load(fh)
+        assert [c["name"] for c in m["source"]["columns"]] == names, (names, m["source"]["columns"])
+        assert m["options"]["stratify_labels"] == names[1:3] and m["options"]["label"] == [names[3]]
+        assert sorted(m["label_positives"]) == sorted(names[1:3]), m["label_positives"]
+        assert list(m["source"]["null_labels"]) == [names[3]], m["source"]["null_labels"]
+        jsonschema.validate(m, schema)
+        cleave(binary, "verify", "out", cwd=folder)
+    print("yaml names: 30 trials")
+
+
 if __name__ == "__main__":
     check, binary, work = sys.argv[1], sys.argv[2], sys.argv[3]
     globals()[f"check_{check}" if check != "make_vectors" else check](binary, work)
