@@ -107,12 +107,60 @@ fn micros_exact(nanos: u32) -> bool {
 /// Parses an RFC 3339 timestamp with an offset (`Z` or `+02:00`) into
 /// microseconds since the epoch, UTC. More than microsecond precision is
 /// refused rather than rounded away.
+///
+/// Also the forms databases and dataframe libraries write: a space for the
+/// `T` (`2013-01-01 10:00:00+00`, as PostgreSQL and DuckDB do), offsets
+/// `+HH` and `+HHMM` besides `+HH:MM`, a lower-case `z`, and a fraction of
+/// any length (digits past the microsecond must be zeros).
 pub fn parse_timestamp(text: &str) -> Option<i64> {
-    if text.len() < 20 {
+    if text.len() < 20 || !text.as_bytes()[..4].iter().all(u8::is_ascii_digit) {
         return None;
     }
-    let t = DateTime::parse_from_rfc3339(text).ok()?;
+    let t = match DateTime::parse_from_rfc3339(text) {
+        Ok(t) => t,
+        Err(_) => DateTime::parse_from_rfc3339(&rfc3339_form(text)?).ok()?,
+    };
     micros_exact(t.timestamp_subsec_nanos()).then(|| t.timestamp_micros())
+}
+
+/// The RFC 3339 spelling of a timestamp written with a space for the `T`, a
+/// lower-case `z`, an offset `+HH` or `+HHMM`, or a fraction longer than
+/// nanoseconds (its extra digits zeros); `None` when it is none of these.
+fn rfc3339_form(text: &str) -> Option<String> {
+    let b = text.as_bytes();
+    if b.len() < 20 || b[4] != b'-' || b[7] != b'-' || !matches!(b[10], b'T' | b't' | b' ') || b[13] != b':' {
+        return None;
+    }
+    let mut out = String::with_capacity(text.len() + 3);
+    out.push_str(&text[..10]);
+    out.push('T');
+    let rest = &text[11..];
+    // The offset: after the time, the last `+`, `-`, `Z` or `z`.
+    let at = rest.rfind(['+', '-', 'Z', 'z'])?;
+    let (time, offset) = rest.split_at(at);
+    let time = match time.split_once('.') {
+        Some((whole, frac)) if frac.len() > 9 => {
+            if !frac.bytes().all(|c| c.is_ascii_digit()) || frac[9..].bytes().any(|c| c != b'0') {
+                return None;
+            }
+            format!("{whole}.{}", &frac[..9])
+        }
+        _ => time.to_string(),
+    };
+    out.push_str(&time);
+    let offset = match offset.as_bytes() {
+        [b'Z' | b'z'] => "Z".to_string(),
+        [s @ (b'+' | b'-'), h1, h2] if h1.is_ascii_digit() && h2.is_ascii_digit() => {
+            format!("{}{}{}:00", *s as char, *h1 as char, *h2 as char)
+        }
+        [s @ (b'+' | b'-'), h1, h2, m1, m2] if [h1, h2, m1, m2].iter().all(|c| c.is_ascii_digit()) => {
+            format!("{}{}{}:{}{}", *s as char, *h1 as char, *h2 as char, *m1 as char, *m2 as char)
+        }
+        [b'+' | b'-', _, _, b':', _, _] => offset.to_string(),
+        _ => return None,
+    };
+    out.push_str(&offset);
+    Some(out)
 }
 
 /// Parses a date and time without an offset (`2024-05-01T08:30:00`, a space
@@ -612,5 +660,35 @@ mod tests {
         assert_eq!(parse_timestamp("1996-12-19T16:39:57-08:00"), Some(851042397000000));
         assert_eq!(parse_timestamp("1937-01-01T12:00:27.87+00:20"), Some(-1041337172130000));
         assert_eq!(parse_local_timestamp("1970-01-01 00:00:01"), Some(1_000_000));
+    }
+
+    /// The spellings databases and dataframe libraries write name the same
+    /// instants: PostgreSQL and DuckDB (`+00`, a space), pandas (`+00:00`,
+    /// a space), `+HHMM` offsets, lower-case `z`, long zero fractions (the
+    /// forms are common practice; the values worked by hand).
+    #[test]
+    fn timestamps_as_databases_write_them() {
+        let instant = parse_timestamp("2013-01-01T10:00:00Z").unwrap();
+        for text in [
+            "2013-01-01 10:00:00+00",
+            "2013-01-01 10:00:00+0000",
+            "2013-01-01 10:00:00+00:00",
+            "2013-01-01t10:00:00z",
+            "2013-01-01 05:00:00-05",
+            "2013-01-01 15:30:00+0530",
+            "2013-01-01 10:00:00.000000000000+00",
+        ] {
+            assert_eq!(parse_timestamp(text), Some(instant), "{text}");
+        }
+        assert_eq!(parse_timestamp("2013-01-01 10:00:00.25+00"), Some(instant + 250_000));
+        // More than microseconds, a bad offset, no offset: not timestamps with an offset.
+        for text in [
+            "2013-01-01 10:00:00.1234567+00",
+            "2013-01-01 10:00:00+5",
+            "2013-01-01 10:00:00",
+            "2013-01-01 10:00:00+00:0",
+        ] {
+            assert_eq!(parse_timestamp(text), None, "{text}");
+        }
     }
 }

@@ -374,3 +374,43 @@ fn group_and_strata_columns_read_as_dictionaries_split_as_plain_ones() {
     assert_eq!(split("plain.parquet", "c"), expected, "plain stations");
     assert_eq!(split("fallback.parquet", "d"), expected, "dictionaries falling back to plain pages");
 }
+
+/// Timestamps as PostgreSQL and DuckDB write them in CSV (`2013-01-01
+/// 10:00:00+00`) and as pandas does (`+00:00`) are instants: the same table
+/// with RFC 3339 `T...Z` text gives the same types, partitions, digests and
+/// seal, and orders by them.
+#[test]
+fn database_timestamp_text_digests_as_the_same_instants() {
+    let t = Test::new();
+    let mut rfc = String::from("station,sample_time,ph\n");
+    let mut db = rfc.clone();
+    let mut pandas = rfc.clone();
+    for i in 0..200u32 {
+        let (h, m) = (i / 60 % 24, i % 60);
+        rfc.push_str(&format!("ST{},2013-01-{:02}T{h:02}:{m:02}:00Z,7.{}\n", i % 7, 1 + i % 28, i % 10));
+        db.push_str(&format!("ST{},2013-01-{:02} {h:02}:{m:02}:00+00,7.{}\n", i % 7, 1 + i % 28, i % 10));
+        // The same instants one hour east.
+        pandas.push_str(&format!("ST{},2013-01-{:02} {:02}:{m:02}:00+01:00,7.{}\n", i % 7, 1 + i % 28, h + 1, i % 10));
+    }
+    // Hour 24 does not exist: keep the shifted hours within the day.
+    assert!(!pandas.contains(" 24:"));
+    t.write("rfc.csv", rfc);
+    t.write("db.csv", db);
+    t.write("pandas.csv", pandas);
+    let seal = |input: &str, out: &str| {
+        t.ok(&["split", input, "--out", out, "--order-by", "sample_time"]);
+        let m = manifest(&t.path(out));
+        let columns = format!("{:?}", m["source"]["columns"]);
+        let digests: Vec<String> = m["partitions"]
+            .as_sequence()
+            .unwrap()
+            .iter()
+            .map(|p| p["content_digest"].as_str().unwrap().to_string())
+            .collect();
+        (columns, digests, std::fs::read(t.path(&format!("{out}/seal.rows.bin"))).unwrap())
+    };
+    let expected = seal("rfc.csv", "a");
+    assert!(expected.0.contains("timestamp"), "{}", expected.0);
+    assert_eq!(seal("db.csv", "b"), expected, "PostgreSQL / DuckDB text");
+    assert_eq!(seal("pandas.csv", "c"), expected, "pandas text");
+}
