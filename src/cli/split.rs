@@ -271,6 +271,7 @@ pub fn run(mut args: Args) -> anyhow::Result<Outcome> {
         fold_column: args.fold_column,
         digest_key: args.digest_key.as_deref().map(crate::cli::read_key).transpose()?,
         created: creation_time()?,
+        source_name: None,
     };
     // Library errors name the file, line and column themselves.
     let outcome = split::run(&cfg)?;

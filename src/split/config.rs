@@ -116,6 +116,9 @@ pub struct SplitConfig {
     pub expect_input_digest: Option<String>,
     /// The manifest's creation time, RFC 3339.
     pub created: String,
+    /// The source's name for the manifest when the input was read from a
+    /// pipe into a file of cleave's (`-` for standard input).
+    pub source_name: Option<String>,
 }
 
 /// The input opened and the options resolved against its columns.

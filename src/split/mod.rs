@@ -66,6 +66,17 @@ pub fn run(cfg: &SplitConfig) -> Result<SplitOutcome> {
     config::check_combinations(cfg)?;
     let _lock = OutputLock::take(&cfg.out)?;
     let mut said = output::recover(&cfg.out)?;
+    // Standard input (`-`) and pipes are read once into a file beside the
+    // output, which both passes read and which is removed at the end.
+    let spool = output::Spool::take(cfg)?;
+    let spooled;
+    let cfg = match &spool {
+        Some(s) => {
+            spooled = SplitConfig { input: s.file.clone(), source_name: Some(s.name.clone()), ..cfg.clone() };
+            &spooled
+        }
+        None => cfg,
+    };
     output::check_output(cfg)?;
     let mut opened = config::open(cfg)?;
     let facts = pass_one::first_pass(cfg, &mut opened)?;

@@ -105,7 +105,7 @@ pub(super) fn recover(out: &Path) -> Result<Vec<String>> {
         if let Some(rest) = file.strip_prefix(&format!(".{name}.cleave-")) {
             if rest.starts_with("old-") {
                 parked.push(e.path());
-            } else if rest.starts_with("staging-") {
+            } else if rest.starts_with("staging-") || rest.starts_with("input-") {
                 staging.push(e.path());
             }
         }
@@ -130,6 +130,74 @@ pub(super) fn recover(out: &Path) -> Result<Vec<String>> {
         said.push(format!("removed `{}`, the unfinished output of a killed split", p.display()));
     }
     Ok(said)
+}
+
+/// The input of a split read from standard input or a pipe, in a folder
+/// `.OUT.cleave-input-PID` beside the output; removed when dropped.
+pub(super) struct Spool {
+    /// The folder.
+    dir: PathBuf,
+    /// The file both passes read.
+    pub(super) file: PathBuf,
+    /// The source's name for the manifest.
+    pub(super) name: String,
+}
+
+impl Spool {
+    /// Copies standard input (for `-`) or a pipe, FIFO or character device
+    /// named as the input into a file; `None` for a regular file.
+    ///
+    /// # Errors
+    /// No `--format` where the name does not say, an unreadable input, and
+    /// disk failures.
+    pub(super) fn take(cfg: &SplitConfig) -> Result<Option<Spool>> {
+        let stdin = cfg.input.as_os_str() == "-";
+        if !stdin {
+            match std::fs::metadata(&cfg.input) {
+                Ok(m) if !m.is_file() && !m.is_dir() => {}
+                _ => return Ok(None),
+            }
+        }
+        let format = match cfg.format.or_else(|| crate::format::Format::from_path(&cfg.input)) {
+            Some(f) => f,
+            None => {
+                return Err(Error::Options(format!(
+                    "`{}`: reading a stream needs --format (csv, parquet, arrow, jsonl)",
+                    cfg.input.display()
+                )))
+            }
+        };
+        let out = &cfg.out;
+        let name = out.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| "out".into());
+        let parent = out.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
+        let dir = parent.join(format!(".{name}.cleave-input-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).map_err(|e| Error::io(&dir, "cannot create", e))?;
+        let spool = Spool {
+            file: dir.join(format!("input.{}", format.extension())),
+            dir,
+            name: if stdin {
+                "-".into()
+            } else {
+                cfg.input.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default()
+            },
+        };
+        let mut target = std::fs::File::create(&spool.file).map_err(|e| Error::io(&spool.file, "cannot create", e))?;
+        let copied = if stdin {
+            std::io::copy(&mut std::io::stdin().lock(), &mut target)
+        } else {
+            let mut source = std::fs::File::open(&cfg.input).map_err(|e| Error::io(&cfg.input, "cannot open", e))?;
+            std::io::copy(&mut source, &mut target)
+        };
+        copied.map_err(|e| Error::io(&cfg.input, "cannot read", e))?;
+        target.sync_all().map_err(|e| Error::io(&spool.file, "cannot sync", e))?;
+        Ok(Some(spool))
+    }
+}
+
+impl Drop for Spool {
+    fn drop(&mut self) {
+        let _ = std::fs::remove_dir_all(&self.dir);
+    }
 }
 
 /// Refuses an output folder that is a file, is not empty (without

@@ -251,7 +251,10 @@ pub(super) fn record(
         tool: Tool { name: "cleave".into(), version: env!("CARGO_PKG_VERSION").into() },
         created: cfg.created.clone(),
         source: Source {
-            file: cfg.input.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default(),
+            file: cfg
+                .source_name
+                .clone()
+                .unwrap_or_else(|| cfg.input.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default()),
             format,
             bytes: source_summary.bytes,
             blake3: source_summary.blake3,

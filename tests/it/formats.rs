@@ -5,7 +5,7 @@ use std::sync::Arc;
 
 use arrow_schema::{DataType, Field, Schema, TimeUnit};
 
-use crate::util::{fixture, manifest, Test};
+use crate::util::{fixture, manifest, tree, Test};
 
 /// What must not depend on the format: partition sizes, content digests
 /// and the seal files' bytes.
@@ -413,4 +413,57 @@ fn database_timestamp_text_digests_as_the_same_instants() {
     assert!(expected.0.contains("timestamp"), "{}", expected.0);
     assert_eq!(seal("db.csv", "b"), expected, "PostgreSQL / DuckDB text");
     assert_eq!(seal("pandas.csv", "c"), expected, "pandas text");
+}
+
+/// Standard input (`-`), `/dev/stdin` and a named pipe are read once into a
+/// file beside the output: the partitions and seal equal those of the file
+/// itself, the manifest names the source `-` (or the pipe), its BLAKE3 is
+/// that of the bytes, and nothing is left beside the output.
+#[test]
+fn standard_input_and_pipes_split_as_the_file_does() {
+    use std::io::Write as _;
+    use std::process::{Command, Stdio};
+    let t = Test::new();
+    let demo = t.demo();
+    let bytes = std::fs::read(&demo).unwrap();
+    t.ok(&["split", "water-quality.csv", "--out", "file", "--stratify", "bloom_class"]);
+    let piped = |args: &[&str]| {
+        let mut child =
+            t.command(args).stdin(Stdio::piped()).stdout(Stdio::piped()).stderr(Stdio::piped()).spawn().unwrap();
+        child.stdin.take().unwrap().write_all(&bytes).unwrap();
+        let out = child.wait_with_output().unwrap();
+        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    };
+    piped(&["split", "-", "--format", "csv", "--out", "stdin", "--stratify", "bloom_class"]);
+    piped(&["split", "/dev/stdin", "--format", "csv", "--out", "devstdin", "--stratify", "bloom_class"]);
+    let fifo = t.path("pipe.csv");
+    assert!(Command::new("mkfifo").arg(&fifo).status().unwrap().success());
+    let writer = {
+        let (fifo, bytes) = (fifo.clone(), bytes.clone());
+        std::thread::spawn(move || std::fs::write(fifo, bytes).unwrap())
+    };
+    t.ok(&["split", "pipe.csv", "--out", "fifo", "--stratify", "bloom_class"]);
+    writer.join().unwrap();
+    let files = |dir: &str| {
+        let mut all = tree(&t.path(dir));
+        all.remove("manifest.yaml");
+        all
+    };
+    for (dir, name) in [("stdin", "-"), ("devstdin", "stdin"), ("fifo", "pipe.csv")] {
+        assert_eq!(files(dir), files("file"), "{dir}");
+        let m = manifest(&t.path(dir));
+        assert_eq!(m["source"]["file"].as_str(), Some(name));
+        assert_eq!(m["source"]["blake3"], manifest(&t.path("file"))["source"]["blake3"]);
+        t.ok(&["verify", dir]);
+    }
+    let mut left: Vec<String> = t.entries();
+    left.sort();
+    assert_eq!(left, ["devstdin", "fifo", "file", "pipe.csv", "stdin", "water-quality.csv"]);
+    // Without --format, a stream is one clear line.
+    let mut child =
+        t.command(&["split", "-", "--out", "x"]).stdin(Stdio::piped()).stderr(Stdio::piped()).spawn().unwrap();
+    drop(child.stdin.take());
+    let out = child.wait_with_output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("needs --format"));
 }
