@@ -48,7 +48,11 @@ impl Format {
 
     /// The format a path's extension names.
     pub fn from_path(path: &Path) -> Option<Format> {
-        Format::parse(path.extension()?.to_str()?)
+        let name = path.file_name()?.to_str()?;
+        // A compressed text file is named for its format first: `samples.csv.gz`.
+        let name = [".gz", ".zst", ".zstd"].iter().find_map(|ext| name.strip_suffix(ext)).unwrap_or(name);
+        let (_, ext) = name.rsplit_once('.')?;
+        Format::parse(ext)
     }
 }
 
