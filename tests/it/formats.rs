@@ -5,7 +5,7 @@ use std::sync::Arc;
 
 use arrow_schema::{DataType, Field, Schema, TimeUnit};
 
-use crate::util::{fixture, manifest, tree, Test};
+use crate::util::{files_but_manifest, fixture, manifest, Test};
 
 /// What must not depend on the format: partition sizes, content digests
 /// and the seal files' bytes.
@@ -444,11 +444,7 @@ fn standard_input_and_pipes_split_as_the_file_does() {
     };
     t.ok(&["split", "pipe.csv", "--out", "fifo", "--stratify", "bloom_class"]);
     writer.join().unwrap();
-    let files = |dir: &str| {
-        let mut all = tree(&t.path(dir));
-        all.remove("manifest.yaml");
-        all
-    };
+    let files = |dir: &str| files_but_manifest(&t.path(dir));
     for (dir, name) in [("stdin", "-"), ("devstdin", "stdin"), ("fifo", "pipe.csv")] {
         assert_eq!(files(dir), files("file"), "{dir}");
         let m = manifest(&t.path(dir));
@@ -489,11 +485,7 @@ fn compressed_text_splits_as_the_plain_file_does() {
     t.write("wq.csv.gz", &two_members);
     t.write("wq.csv.zst", zstd::encode_all(&plain[..], 3).unwrap());
     t.write("hidden.csv", zstd::encode_all(&plain[..], 1).unwrap());
-    let files = |dir: &str| {
-        let mut all = tree(&t.path(dir));
-        all.remove("manifest.yaml");
-        all
-    };
+    let files = |dir: &str| files_but_manifest(&t.path(dir));
     t.ok(&["split", "water-quality.csv", "--out", "plain", "--label", "bloom_class", "--stratify", "bloom_class"]);
     for (input, dir) in [("wq.csv.gz", "gz"), ("wq.csv.zst", "zst"), ("hidden.csv", "hidden")] {
         t.ok(&["split", input, "--out", dir, "--label", "bloom_class", "--stratify", "bloom_class"]);

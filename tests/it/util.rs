@@ -163,6 +163,14 @@ pub fn tree(dir: &Path) -> BTreeMap<String, Vec<u8>> {
 }
 
 /// The row ids of a split folder's label-free test file.
+/// [`tree`] less the manifest: the files of two splits of one table read
+/// from different sources (their manifests name the sources).
+pub fn files_but_manifest(dir: &Path) -> BTreeMap<String, Vec<u8>> {
+    let mut all = tree(dir);
+    all.remove("manifest.yaml");
+    all
+}
+
 pub fn test_ids(dir: &Path) -> Vec<String> {
     records(&dir.join("test.features.csv")).into_iter().map(|r| r[0].clone()).collect()
 }
