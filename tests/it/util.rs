@@ -162,7 +162,6 @@ pub fn tree(dir: &Path) -> BTreeMap<String, Vec<u8>> {
     out
 }
 
-/// The row ids of a split folder's label-free test file.
 /// [`tree`] less the manifest: the files of two splits of one table read
 /// from different sources (their manifests name the sources).
 pub fn files_but_manifest(dir: &Path) -> BTreeMap<String, Vec<u8>> {
@@ -171,6 +170,7 @@ pub fn files_but_manifest(dir: &Path) -> BTreeMap<String, Vec<u8>> {
     all
 }
 
+/// The row ids of a split folder's label-free test file.
 pub fn test_ids(dir: &Path) -> Vec<String> {
     records(&dir.join("test.features.csv")).into_iter().map(|r| r[0].clone()).collect()
 }
