@@ -99,71 +99,9 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
         )));
     }
     refuse_far_shares(cfg, facts, &totals, time_plan.as_ref())?;
-    let test_index = k - 1;
-    let mut membership = None;
-    let mut repeats = Vec::new();
-    let folds = match &cfg.folds {
-        Some((count, _)) => {
-            let dev: Vec<bool> = partition.iter().map(|&p| p != DROPPED && (p as usize) < test_index).collect();
-            let times = facts.times.as_ref().map(|(t, _)| t.as_slice());
-            let deal = |seed: u64| -> Result<(Vec<u32>, FoldKind, u32)> {
-                Ok(match (&facts.label_sets, count) {
-                    (Some(sets), folds::FoldCount::K(k)) => {
-                        let dev_rows = dev.iter().filter(|&&d| d).count();
-                        if *k as usize > dev_rows {
-                            return Err(Error::Options(format!(
-                                "--folds {k}: only {dev_rows} development rows to share out"
-                            )));
-                        }
-                        let context = "cleave 2026-12-04 multilabel folds v1";
-                        let subset = multilabel::assign(
-                            sets,
-                            cfg.stratify_labels.len(),
-                            &dev,
-                            &vec![1; *k as usize],
-                            seed,
-                            context,
-                        );
-                        let fold =
-                            subset.iter().map(|&f| if f == u8::MAX { folds::NO_FOLD } else { f as u32 }).collect();
-                        (fold, FoldKind::Multilabel, *k)
-                    }
-                    _ => folds::assign(&dev, *count, strata, units, times, seed)?,
-                })
-            };
-            let (fold, kind, k) = deal(cfg.seed)?;
-            for r in 1..cfg.repeats {
-                repeats.push(deal(folds::repeat_seed(cfg.seed, r))?.0);
-            }
-            let embargo = match (&cfg.embargo, &facts.times) {
-                (Some(e), Some((_, kind))) => parse_gap(e, *kind)?,
-                _ => 0,
-            };
-            let intervals = times.map(|start| folds::Intervals { start, end: facts.ends.as_deref(), gap, embargo });
-            Some(match count {
-                folds::FoldCount::Window(w) => {
-                    let m = folds::windows(&dev, times.expect("windows have times"), *w)?;
-                    let kind = if w.expanding { FoldKind::ExpandingWindow } else { FoldKind::SlidingWindow };
-                    let splits = m.status.len() as u32;
-                    membership = Some(m);
-                    (fold, kind, splits)
-                }
-                _ => {
-                    membership = folds::membership(*count, kind, &fold, k, intervals);
-                    // Each repeat's splits follow the first one's.
-                    for again in &repeats {
-                        if let (Some(m), Some(more)) =
-                            (membership.as_mut(), folds::membership(*count, kind, again, k, intervals))
-                        {
-                            m.status.extend(more.status);
-                            m.validates.extend(more.validates);
-                        }
-                    }
-                    (fold, kind, k)
-                }
-            })
-        }
-        None => None,
+    let (folds, repeats, membership) = match &cfg.folds {
+        Some((count, _)) => fold_plan(cfg, facts, *count, &partition, units, gap)?,
+        None => (None, Vec::new(), None),
     };
 
     let mut short = Vec::new();
@@ -193,6 +131,80 @@ pub(super) fn decide(cfg: &SplitConfig, opened: &Opened, facts: &RowFacts) -> Re
         short,
         warnings,
     })
+}
+
+/// The folds a design deals over the development rows: the first repeat's
+/// folds with their kind and count, the folds of further repeats, and
+/// every split's membership.
+type FoldPlan = (Option<(Vec<u32>, FoldKind, u32)>, Vec<Vec<u32>>, Option<folds::Membership>);
+
+/// Deals the folds of `count` over the development rows of `partition`
+/// (see [`FoldPlan`]).
+///
+/// # Errors
+/// More folds than development rows or units, and a design the data cannot lay out.
+fn fold_plan(
+    cfg: &SplitConfig,
+    facts: &RowFacts,
+    count: folds::FoldCount,
+    partition: &[u8],
+    units: Option<&super::structure::Groups>,
+    gap: i64,
+) -> Result<FoldPlan> {
+    let test_index = cfg.ratios.partitions().len() - 1;
+    let strata = &facts.strata;
+    let mut membership;
+    let mut repeats = Vec::new();
+    let dev: Vec<bool> = partition.iter().map(|&p| p != DROPPED && (p as usize) < test_index).collect();
+    let times = facts.times.as_ref().map(|(t, _)| t.as_slice());
+    let deal = |seed: u64| -> Result<(Vec<u32>, FoldKind, u32)> {
+        Ok(match (&facts.label_sets, &count) {
+            (Some(sets), folds::FoldCount::K(k)) => {
+                let dev_rows = dev.iter().filter(|&&d| d).count();
+                if *k as usize > dev_rows {
+                    return Err(Error::Options(format!("--folds {k}: only {dev_rows} development rows to share out")));
+                }
+                let context = "cleave 2026-12-04 multilabel folds v1";
+                let subset =
+                    multilabel::assign(sets, cfg.stratify_labels.len(), &dev, &vec![1; *k as usize], seed, context);
+                let fold = subset.iter().map(|&f| if f == u8::MAX { folds::NO_FOLD } else { f as u32 }).collect();
+                (fold, FoldKind::Multilabel, *k)
+            }
+            _ => folds::assign(&dev, count, strata, units, times, seed)?,
+        })
+    };
+    let (fold, kind, k) = deal(cfg.seed)?;
+    for r in 1..cfg.repeats {
+        repeats.push(deal(folds::repeat_seed(cfg.seed, r))?.0);
+    }
+    let embargo = match (&cfg.embargo, &facts.times) {
+        (Some(e), Some((_, kind))) => parse_gap(e, *kind)?,
+        _ => 0,
+    };
+    let intervals = times.map(|start| folds::Intervals { start, end: facts.ends.as_deref(), gap, embargo });
+    let design = match count {
+        folds::FoldCount::Window(w) => {
+            let m = folds::windows(&dev, times.expect("windows have times"), w)?;
+            let kind = if w.expanding { FoldKind::ExpandingWindow } else { FoldKind::SlidingWindow };
+            let splits = m.status.len() as u32;
+            membership = Some(m);
+            (fold, kind, splits)
+        }
+        _ => {
+            membership = folds::membership(count, kind, &fold, k, intervals);
+            // Each repeat's splits follow the first one's.
+            for again in &repeats {
+                if let (Some(m), Some(more)) =
+                    (membership.as_mut(), folds::membership(count, kind, again, k, intervals))
+                {
+                    m.status.extend(more.status);
+                    m.validates.extend(more.validates);
+                }
+            }
+            (fold, kind, k)
+        }
+    };
+    Ok((Some(design), repeats, membership))
 }
 
 /// Refuses an assignment in which a partition ends with less than

@@ -65,8 +65,8 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     let stable_rows = cfg.stable && group.is_empty();
     // Features digests of every row: for copies, and for the rank of rows
     // within a stratum (stratified and plain splits).
-    let copies = super::config::digests_in_pass_one(cfg);
-    if stable_rows || copies {
+    let digest_rows = super::config::digests_in_pass_one(cfg);
+    if stable_rows || digest_rows {
         needed.extend(spec.columns());
         needed.sort();
         needed.dedup();
@@ -80,9 +80,9 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     let mut group_seen = vec![false; group.len()];
     let mut times: Option<(Vec<i64>, Option<TimeKind>)> = cfg.order_by.as_ref().map(|_| (Vec::new(), None));
     let mut stable_keys = stable_rows.then(Vec::new);
-    // Features (and loose) digests of every row, with their row numbers.
-    let mut copy_keys: Vec<(RowDigest, u32)> = Vec::new();
-    let mut near_keys: Vec<(RowDigest, u32)> = Vec::new();
+    // Features (and, for near-copies, loose) digests of every row, in row order.
+    let mut features: Vec<RowDigest> = Vec::new();
+    let mut loose: Vec<RowDigest> = Vec::new();
     let mut label_sets: Option<Vec<u64>> = (!cfg.stratify_labels.is_empty()).then(Vec::new);
     let mut ends: Option<(Vec<i64>, Option<TimeKind>)> = cfg.until.as_ref().map(|_| (Vec::new(), None));
     // The rows come from the kept CSV text or from a reading pass.
@@ -90,7 +90,7 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     // dictionaries where the file has them: their values are encoded and
     // digested once per dictionary, not once per row.
     let mut dictionaries: Vec<String> = Vec::new();
-    if !stable_rows && !copies {
+    if !stable_rows && !digest_rows {
         dictionaries.extend(stratify.iter().filter(|(_, t)| !t.is_numeric()).map(|(n, _)| n.clone()));
         if let [column] = group {
             dictionaries.push(column.clone());
@@ -198,26 +198,23 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
                 }
             }
         }
-        if let Some(keys) = stable_keys.as_mut().filter(|_| !copies) {
+        if let Some(keys) = stable_keys.as_mut().filter(|_| !digest_rows) {
             spec.bind(&cfg.input, &batch.data.schema())?.row_digests(&batch.data, keys)?;
         }
         if let Some(sets) = label_sets.as_mut() {
             label_set_values(cfg, &batch, sets)?;
         }
-        if copies {
-            let first = (rows - batch.data.num_rows() as u64) as u32;
+        if digest_rows {
             let bound = spec.bind_features(&cfg.input, &batch.data.schema())?;
             if cfg.copies == Copies::TogetherNear {
                 let mut pairs = Vec::with_capacity(batch.data.num_rows());
                 bound.features_and_loose_of(&batch.data, &mut pairs)?;
-                for (i, (f, l)) in pairs.into_iter().enumerate() {
-                    copy_keys.push((f, first + i as u32));
-                    near_keys.push((l, first + i as u32));
+                for (f, l) in pairs {
+                    features.push(f);
+                    loose.push(l);
                 }
             } else {
-                let mut digests = Vec::with_capacity(batch.data.num_rows());
-                bound.row_digests(&batch.data, &mut digests)?;
-                copy_keys.extend(digests.into_iter().zip(first..));
+                bound.row_digests(&batch.data, &mut features)?;
             }
         }
     }
@@ -268,24 +265,18 @@ pub(super) fn first_pass(cfg: &SplitConfig, opened: &mut Opened) -> Result<RowFa
     if let Some(keys) = stable_keys.as_mut() {
         // Copies kept together: a stable split reads the partition off the
         // features (or loose) digest, equal for every copy.
-        let by = if cfg.copies == Copies::TogetherNear { &near_keys } else { &copy_keys };
-        keys.extend(by.iter().map(|&(d, _)| d));
+        keys.extend_from_slice(if cfg.copies == Copies::TogetherNear { &loose } else { &features });
     }
-    let rank_digests = copies.then(|| copy_keys.iter().map(|&(d, _)| d).collect::<Vec<_>>());
     let joined = cfg.copies != Copies::Apart;
-    let units = joined.then(|| copy_units(rows as usize, groups.as_ref(), copy_keys, near_keys)).flatten();
+    let units = joined.then(|| copy_units(rows as usize, groups.as_ref(), &features, &loose)).flatten();
+    let rank_digests = digest_rows.then_some(features);
     Ok(RowFacts { rows, strata, groups, times, ends, label_sets, stable_keys, units, rank_digests, null_labels })
 }
 
 /// The union of the groups and of the rows sharing a features (or loose)
 /// digest, as groups numbered by their first row; `None` when that is no
 /// more than the groups (or than single rows, without groups).
-fn copy_units(
-    rows: usize,
-    groups: Option<&Groups>,
-    mut copy_keys: Vec<(RowDigest, u32)>,
-    mut near_keys: Vec<(RowDigest, u32)>,
-) -> Option<Groups> {
+fn copy_units(rows: usize, groups: Option<&Groups>, features: &[RowDigest], loose: &[RowDigest]) -> Option<Groups> {
     let mut parent: Vec<u32> = (0..rows as u32).collect();
     fn root(parent: &mut [u32], mut x: u32) -> u32 {
         while parent[x as usize] != x {
@@ -313,7 +304,8 @@ fn copy_units(
         }
     }
     let groups_only: Vec<u32> = (0..rows as u32).map(|r| root(&mut parent, r)).collect();
-    for keys in [&mut copy_keys, &mut near_keys] {
+    for digests in [features, loose] {
+        let mut keys: Vec<(RowDigest, u32)> = digests.iter().copied().zip(0..).collect();
         keys.par_sort_unstable();
         for pair in keys.windows(2) {
             if pair[0].0 == pair[1].0 {
@@ -330,11 +322,7 @@ fn copy_units(
         return None;
     }
     // A unit's digest: the features digest of its first row (its root).
-    let mut first_digest: Vec<RowDigest> = vec![[0; 16]; rows];
-    for &(d, r) in &copy_keys {
-        first_digest[r as usize] = d;
-    }
-    let digests: Vec<RowDigest> = (0..rows as u32).map(|r| first_digest[root(&mut parent, r) as usize]).collect();
+    let digests: Vec<RowDigest> = (0..rows as u32).map(|r| features[root(&mut parent, r) as usize]).collect();
     let mut units = Groups::new();
     units.push(&digests);
     Some(units)
